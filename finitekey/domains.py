@@ -1,0 +1,158 @@
+"""Parameter declarations and their domains.
+
+A :class:`Domain` is data: lower and upper limits, whether each end is open, and
+whether the value must be an integer.  One :meth:`Domain.check` serves every
+parameter of every bound, protocol and file, so that all error messages have
+the same shape: field, value received, allowed range.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import InputError
+
+__all__ = ["Domain", "Parameter", "PROBABILITY", "COUNT", "POSITIVE_COUNT", "POSITIVE_REAL"]
+
+
+@dataclass(frozen=True, slots=True)
+class Domain:
+    """An interval of the real line, optionally restricted to integers.
+
+    Parameters
+    ----------
+    lower, upper : float
+        Limits; use ``-math.inf`` / ``math.inf`` for none.
+    lower_open, upper_open : bool
+        Whether the corresponding limit is excluded.
+    integer : bool
+        Whether values must be whole numbers.
+    """
+
+    lower: float = -math.inf
+    upper: float = math.inf
+    lower_open: bool = False
+    upper_open: bool = False
+    integer: bool = False
+
+    def describe(self) -> str:
+        """Return the allowed range in words, e.g. ``'an integer in [1, inf)'``."""
+        kind = "an integer" if self.integer else "a finite real number"
+        left = "(" if (self.lower_open or math.isinf(self.lower)) else "["
+        right = ")" if (self.upper_open or math.isinf(self.upper)) else "]"
+        return f"{kind} in {left}{_fmt(self.lower)}, {_fmt(self.upper)}{right}"
+
+    def contains(self, x: float) -> bool:
+        """Whether the scalar ``x`` lies in the domain."""
+        if not math.isfinite(x):
+            return False
+        if self.integer and x != math.floor(x):
+            return False
+        if x < self.lower or (self.lower_open and x == self.lower):
+            return False
+        if x > self.upper or (self.upper_open and x == self.upper):
+            return False
+        return True
+
+    def check(self, field: str, value):
+        """Validate ``value`` (scalar or array) and return it.
+
+        Scalars come back as Python ``int`` (integer domains) or ``float``;
+        arrays come back as numpy arrays of dtype float64 (or int64/object for
+        large integers).  Booleans, strings, NaN and infinities are rejected.
+
+        Raises
+        ------
+        InputError
+            If any element is outside the domain, naming ``field``, the value and the range.
+        """
+        if isinstance(value, (bool, np.bool_)) or value is None or isinstance(value, (str, bytes)):
+            raise InputError(field, value, self.describe())
+        if isinstance(value, numbers.Number):
+            return self._check_scalar(field, value)
+        try:
+            arr = np.asarray(value)
+        except Exception as exc:  # pragma: no cover - exotic containers
+            raise InputError(field, value, self.describe()) from exc
+        if arr.dtype.kind not in "iuf" or arr.size == 0:
+            raise InputError(field, value, self.describe())
+        if arr.ndim == 0:
+            return self._check_scalar(field, arr.item())
+        flat = arr.ravel()
+        bad = ~np.isfinite(flat.astype(float))
+        if not bad.any():
+            if self.integer:
+                bad |= flat != np.floor(flat)
+            bad |= (flat < self.lower) | (flat > self.upper)
+            if self.lower_open:
+                bad |= flat == self.lower
+            if self.upper_open:
+                bad |= flat == self.upper
+        if bad.any():
+            first = flat[np.argmax(bad)].item()
+            raise InputError(field, first, self.describe())
+        if self.integer:
+            return arr.astype(np.int64) if np.all(np.abs(arr) < 2**62) else arr.astype(object)
+        return arr.astype(float)
+
+    def _check_scalar(self, field, value):
+        if isinstance(value, numbers.Integral):
+            x = int(value)
+            ok = self.contains(float(x)) if abs(x) < 2**1000 else False
+            if not ok:
+                raise InputError(field, value, self.describe())
+            return x
+        try:
+            x = float(value)
+        except (TypeError, OverflowError) as exc:
+            raise InputError(field, value, self.describe()) from exc
+        if not self.contains(x):
+            raise InputError(field, value, self.describe())
+        return int(x) if self.integer else x
+
+
+@dataclass(frozen=True, slots=True)
+class Parameter:
+    """A named, documented parameter with its domain.
+
+    Parameters
+    ----------
+    name : str
+        Python keyword used in the API and in files.
+    latex : str
+        LaTeX symbol used in formulas, e.g. ``r"\\varepsilon"``.
+    domain : Domain
+        Allowed values.
+    description : str
+        One line saying what the parameter is, with its unit if any.
+    typical : tuple of float
+        A range of typical values, used by generic tests and documentation.
+    """
+
+    name: str
+    latex: str
+    domain: Domain
+    description: str
+    typical: tuple = (1.0, 1.0)
+
+    def check(self, value, field: str | None = None):
+        """Validate ``value`` against the domain; see :meth:`Domain.check`."""
+        return self.domain.check(field or self.name, value)
+
+
+def _fmt(x: float) -> str:
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    if float(x).is_integer() and abs(x) < 1e15:
+        return str(int(x))
+    return repr(float(x))
+
+
+PROBABILITY = Domain(0.0, 1.0, lower_open=True, upper_open=True)
+COUNT = Domain(0, math.inf, integer=True)
+POSITIVE_COUNT = Domain(1, math.inf, integer=True)
+POSITIVE_REAL = Domain(0.0, math.inf, lower_open=True)

@@ -1,0 +1,46 @@
+"""One exception family for finitekey.
+
+Every user-facing error names the field that is wrong, repeats the value that
+was given, and states what is allowed.  The command line turns these into a
+one-line message and exit code 2; nothing below the API prints a traceback for
+a user error.
+"""
+
+from __future__ import annotations
+
+__all__ = ["FiniteKeyError", "InputError", "ComputationError"]
+
+
+class FiniteKeyError(Exception):
+    """Base class of every error raised on purpose by finitekey."""
+
+
+class InputError(FiniteKeyError, ValueError):
+    """A value given by the user is outside its allowed range or of the wrong type.
+
+    Parameters
+    ----------
+    field : str
+        Name of the parameter or file field, e.g. ``"eps"`` or ``"link.distance_km"``.
+    value : object
+        The value received.
+    allowed : str
+        Plain-language description of what is allowed, e.g. ``"a real number in (0, 1)"``.
+    """
+
+    def __init__(self, field: str, value: object, allowed: str):
+        self.field = field
+        self.value = value
+        self.allowed = allowed
+        super().__init__(f"{field} = {_show(value)} is not allowed; expected {allowed}")
+
+
+class ComputationError(FiniteKeyError, ArithmeticError):
+    """A numerical procedure could not produce a result it can vouch for."""
+
+
+def _show(value: object) -> str:
+    text = repr(value)
+    if len(text) > 80:
+        text = text[:77] + "..."
+    return text
