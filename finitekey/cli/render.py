@@ -1,0 +1,64 @@
+"""Shared rendering helpers for the sub-commands: JSON output and aligned text tables."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+
+from ..cautions import CAUTION
+
+
+def _default(o):
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, (np.floating,)):
+        return float(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if hasattr(o, "value") and hasattr(o, "name"):  # enums
+        return o.value
+    raise TypeError(f"not JSON serialisable: {type(o).__name__}")
+
+
+def to_json(obj) -> str:
+    """JSON text; non-finite floats are refused so that no NaN reaches a consumer."""
+    return json.dumps(obj, indent=2, default=_default, allow_nan=False)
+
+
+def table(rows, headers) -> str:
+    """Aligned plain-text table from a list of row sequences."""
+    cells = [[str(h) for h in headers]] + [[fmt(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
+    lines = ["  ".join(c.ljust(w) for c, w in zip(cells[0], widths)),
+             "  ".join("-" * w for w in widths)]
+    lines += ["  ".join(c.rjust(w) if _numeric(c) else c.ljust(w) for c, w in zip(r, widths)) for r in cells[1:]]
+    return "\n".join(lines)
+
+
+def fmt(x) -> str:
+    if isinstance(x, bool):
+        return str(x)
+    if isinstance(x, (int, np.integer)):
+        return f"{int(x):,}".replace(",", " ") if abs(int(x)) >= 10000 else str(int(x))
+    if isinstance(x, (float, np.floating)):
+        x = float(x)
+        if x == 0 or not math.isfinite(x):
+            return str(x)
+        if abs(x) >= 1e5 or abs(x) < 1e-3:
+            return f"{x:.4e}"
+        return f"{x:.6g}"
+    return str(x)
+
+
+def _numeric(s: str) -> bool:
+    try:
+        float(s.replace(" ", ""))
+        return True
+    except ValueError:
+        return False
+
+
+def caution_block() -> str:
+    return CAUTION

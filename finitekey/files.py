@@ -1,0 +1,115 @@
+"""Reading input files and writing output files safely.
+
+Inputs: JSON, JSON Lines, CSV and TOML, with errors that name the file, the
+field and the problem.  Outputs: written to a temporary file in the target
+directory and renamed into place, so an interruption never leaves a
+half-written file.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+from .errors import InputError
+
+__all__ = ["atomic_write", "read_json", "read_toml", "read_records"]
+
+
+def atomic_write(path, data) -> None:
+    """Write ``data`` (str or bytes) to ``path`` atomically (temp file + rename)."""
+    path = Path(path)
+    directory = path.parent if str(path.parent) else Path(".")
+    if not directory.is_dir():
+        raise InputError("output", str(path), "a file in an existing directory")
+    mode = "wb" if isinstance(data, (bytes, bytearray)) else "w"
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
+    try:
+        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def _read_text(path) -> str:
+    p = Path(path)
+    if not p.is_file():
+        raise InputError("file", str(path), "a path to an existing, readable file")
+    try:
+        return p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError("file", str(path), f"a readable UTF-8 text file ({exc})") from None
+
+
+def read_json(path) -> object:
+    """Parse a JSON file; syntax errors name the file, line and column."""
+    text = _read_text(path)
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise InputError(f"{path}: line {exc.lineno} column {exc.colno}", exc.msg, "valid JSON") from None
+
+
+def read_toml(path) -> dict:
+    """Parse a TOML file; syntax errors name the file and the problem."""
+    text = _read_text(path)
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(str(path), str(exc), "valid TOML") from None
+
+
+def read_records(path) -> list:
+    """Read one record per line from JSON Lines (``.jsonl``) or CSV (``.csv``) or a JSON list.
+
+    CSV cells that look like numbers become int or float; list-valued fields in
+    CSV are written as ``a;b;c``.
+    """
+    p = str(path)
+    if p.endswith(".csv"):
+        rows = list(csv.DictReader(io.StringIO(_read_text(path))))
+        return [{k: _cell(v) for k, v in row.items() if k is not None and v not in ("", None)} for row in rows]
+    if p.endswith(".jsonl") or p.endswith(".ndjson"):
+        out = []
+        for i, line in enumerate(_read_text(path).splitlines(), start=1):
+            if not line.strip():
+                continue
+            try:
+                out.append(json.loads(line))
+            except json.JSONDecodeError as exc:
+                raise InputError(f"{path}: line {i}", exc.msg, "one JSON object per line") from None
+        return out
+    data = read_json(path)
+    if isinstance(data, list):
+        return data
+    return [data]
+
+
+def _cell(v: str):
+    if ";" in v:
+        return [_cell(x) for x in v.split(";")]
+    try:
+        return int(v)
+    except ValueError:
+        pass
+    try:
+        return float(v)
+    except ValueError:
+        return v
