@@ -1,0 +1,21 @@
+"""Protocol analyses: one module per protocol, each registering one protocol object.
+
+A protocol object turns an observed block into a certified secret key length
+(:class:`~finitekey.protocols._result.KeyLengthResult`), designs free
+parameters for a scenario and solves for block sizes.  The modules are imported
+here explicitly, each on its own line, so that importing this package registers
+every protocol.
+"""
+
+from __future__ import annotations
+
+from ._registry import all_protocols, get, names, register
+from ._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult
+
+__all__ = ["register", "get", "names", "all_protocols", "KeyLengthResult", "DesignResult", "BlockTarget",
+           "BlockTargetKind", "BlockSizeResult", "DEFAULT_PROTOCOL"]
+
+#: Protocol whose default scenario ``finitekey design`` uses when no file is given.
+DEFAULT_PROTOCOL = "bb84"
+
+from . import bb84  # noqa: E402,F401  (each import registers its protocol)

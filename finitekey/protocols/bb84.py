@@ -1,0 +1,1 @@
+"""BB84 finite-key analysis (work in progress: the protocol object lands in the next commit)."""
