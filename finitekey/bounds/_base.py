@@ -82,6 +82,10 @@ class Bound(abc.ABC):
     assumptions : tuple of str
     exact : bool
         True where the value is computed from the exact distribution rather than bounded.
+    size_parameters : tuple of str
+        Names of parameters that count samples (or an expected count), such that
+        the deviation is non-increasing as any one of them grows with the others
+        fixed.  Generic tests check that property.  Default: none declared.
     """
 
     name: str
@@ -93,6 +97,7 @@ class Bound(abc.ABC):
     references: tuple = ()
     assumptions: tuple = ()
     exact: bool = False
+    size_parameters: tuple = ()
 
     # ---- public API: validation, then the private hooks -------------------------
     def parameter(self, name: str) -> Parameter:
@@ -204,6 +209,15 @@ def _scalar(x, name):
     return x
 
 
+def _symbol_for(p: Parameter) -> sp.Symbol:
+    dom = p.domain
+    if dom.lower > 0 or (dom.lower == 0 and dom.lower_open):
+        return sp.Symbol(p.name, positive=True)
+    if dom.lower == 0:
+        return sp.Symbol(p.name, nonnegative=True)
+    return sp.Symbol(p.name, real=True)
+
+
 class SymbolicBound(Bound):
     """A bound given by one sympy expression for its failure probability.
 
@@ -222,6 +236,8 @@ class SymbolicBound(Bound):
     deviation_bracket : callable, optional
         ``f(params) -> (lo, hi)`` bracket for root finding when no closed form
         exists; defaults to the deviation domain clipped to finite values.
+    size_parameters : sequence of str, optional
+        See :class:`Bound`.
 
     Notes
     -----
@@ -234,7 +250,8 @@ class SymbolicBound(Bound):
     """
 
     def __init__(self, *, name, title, summary, bounds, parameters, deviation_parameter,
-                 failure_probability, references=(), assumptions=(), deviation_bracket=None):
+                 failure_probability, references=(), assumptions=(), deviation_bracket=None,
+                 size_parameters=()):
         self.name = name
         self.title = title
         self.summary = summary
@@ -244,7 +261,14 @@ class SymbolicBound(Bound):
         self.references = tuple(references)
         self.assumptions = tuple(assumptions)
         self._bracket = deviation_bracket
-        self.symbols = {p.name: sp.Symbol(p.name, positive=True) for p in (*self.parameters, deviation_parameter)}
+        self.size_parameters = tuple(size_parameters)
+        unknown = set(self.size_parameters) - {p.name for p in self.parameters}
+        if unknown:
+            raise ValueError(f"{name}: size_parameters {sorted(unknown)} are not parameters")
+        # Symbol assumptions follow the declared domain: a parameter that may be
+        # negative must not be declared positive, or sympy may simplify with a
+        # false assumption (e.g. sqrt(a**2) -> a).
+        self.symbols = {p.name: _symbol_for(p) for p in (*self.parameters, deviation_parameter)}
         self.symbols["eps"] = sp.Symbol("epsilon", positive=True)
         free = {s.name for s in failure_probability.free_symbols}
         missing = free - set(self.symbols) - {"epsilon"}
@@ -312,7 +336,9 @@ class SymbolicBound(Bound):
             return min(self._tail.mp(*self._args(params), deviation, dps=dps), mpmath.mpf(1))
 
     def _failure_probability_certified(self, deviation, params, prec):
-        return Enclosure.from_arb(self._tail.certified(*self._args(params), deviation, prec=prec))
+        # Same cap at 1 as the float and mpmath evaluators, so all three agree.
+        enc = Enclosure.from_arb(self._tail.certified(*self._args(params), deviation, prec=prec))
+        return Enclosure(min(enc.lo, 1.0), min(enc.hi, 1.0))
 
     def _deviation(self, eps, params):
         if self._dev is not None:
