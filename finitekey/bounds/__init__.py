@@ -15,3 +15,4 @@ __all__ = ["Bound", "SymbolicBound", "Reference", "EPS", "register", "get", "nam
 from ._registry import all_bounds, get, names, register
 
 from . import hoeffding  # noqa: E402,F401  (each import registers its bounds)
+from . import serfling, random_sampling, chernoff, kato  # noqa: E402,F401  (symbolic concentration bounds)

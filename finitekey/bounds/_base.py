@@ -218,6 +218,23 @@ def _symbol_for(p: Parameter) -> sp.Symbol:
     return sp.Symbol(p.name, real=True)
 
 
+def _tidy_logs(expr: sp.Expr) -> sp.Expr:
+    """Rewrite ``log(exp(z) * w)`` as ``z + log(w)``.
+
+    sympy.solve can return forms such as ``log(exp(a**2/c)/sqrt(epsilon))``
+    whose inner ``exp`` overflows in float64 although the value is moderate.
+    Every symbol of a SymbolicBound is real, so ``log(exp(z)) = z`` is an
+    identity for any ``z`` built from them without the imaginary unit.
+    """
+    expr = sp.expand_log(expr)
+
+    def is_log_exp(e):
+        return (isinstance(e, sp.log) and isinstance(e.args[0], sp.exp) and not e.args[0].args[0].has(sp.I)
+                and all(sym.is_real for sym in e.args[0].args[0].free_symbols))
+
+    return expr.replace(is_log_exp, lambda e: e.args[0].args[0])
+
+
 class SymbolicBound(Bound):
     """A bound given by one sympy expression for its failure probability.
 
@@ -313,7 +330,7 @@ class SymbolicBound(Bound):
                 if abs(back - target) <= 1e-8 * target:
                     good.append(s)
             sols = good
-        return sols[0] if len(sols) == 1 else None
+        return _tidy_logs(sols[0]) if len(sols) == 1 else None
 
     def _args(self, params):
         return [params[p.name] for p in self.parameters]
