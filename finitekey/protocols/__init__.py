@@ -19,3 +19,4 @@ __all__ = ["register", "get", "names", "all_protocols", "KeyLengthResult", "Desi
 DEFAULT_PROTOCOL = "bb84"
 
 from . import bb84  # noqa: E402,F401  (each import registers its protocol)
+from . import decoy_bb84  # noqa: E402,F401

@@ -1,0 +1,249 @@
+"""Decoy-state estimation formulas, written once for two number types (private helper of decoy_bb84).
+
+Every closed form here is plain arithmetic (``+ - * /``) plus an ``exp`` that the caller passes, so the
+same source runs
+
+* on float64 numpy arrays (vectorised, for parameter design), and
+* on python-flint ``arb`` balls (for the certified key length: the ball contains the exact value of the
+  formula at the conservative inputs, and the reported length is rounded down from its lower end).
+
+Notation (see proofs_notes/protocols/decoy_bb84.md): intensities ``mu[0] > mu[1] > ... `` (descending),
+probabilities ``p[k]``; ``lo[k], hi[k]`` bound the *expected* count of detections (or errors) of intensity
+``k`` given the photon-number content of the detected pulses, i.e. ``sum_n p_{k|n} s_n``; the rescaled
+``e^{mu_k}/p_k`` times these bounds are the quantities the decoy inequalities act on.
+
+References
+----------
+.. [1] C. C. W. Lim, M. Curty, N. Walenta, F. Xu, H. Zbinden, Phys. Rev. A 89, 022307 (2014).
+.. [2] D. Rusca, A. Boaron, F. Grünenfelder, A. Martin, H. Zbinden, Appl. Phys. Lett. 112, 171104 (2018).
+.. [3] X. Ma, B. Qi, Y. Zhao, H.-K. Lo, Phys. Rev. A 72, 012326 (2005).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from flint import arb, ctx
+from scipy import special
+
+from ..bounds.binomial_exact import (binomial_lower_limit_certified, binomial_upper_limit_certified)
+from ..bounds.chernoff import (expectation_lower, expectation_lower_certified, expectation_upper,
+                               expectation_upper_certified)
+from ..compile import to_arb
+from ..errors import ComputationError
+
+LN2 = math.log(2.0)
+
+#: Count-statistics methods: how an interval on an expected count is inferred from an observed count.
+COUNT_METHODS = ("exact", "chernoff", "hoeffding")
+
+
+# ---------------------------------------------------------------------------------------------------------
+# number-type helpers
+# ---------------------------------------------------------------------------------------------------------
+def arb_exp(x):
+    return to_arb(x).exp()
+
+
+def floor_arb(x: arb) -> float:
+    """A float certainly <= every point of the ball."""
+    lo = x.lower()
+    f = float(lo)
+    return f if arb(f) <= lo else math.nextafter(f, -math.inf)
+
+
+def ceil_arb(x: arb) -> float:
+    """A float certainly >= every point of the ball."""
+    hi = x.upper()
+    f = float(hi)
+    return f if arb(f) >= hi else math.nextafter(f, math.inf)
+
+
+def clip0(x):
+    """max(x, 0) for a lower bound (numpy or arb: for arb, the lower end clipped at 0 as a new exact ball)."""
+    if isinstance(x, arb):
+        lo = float(x.lower())
+        return arb(0) if lo <= 0 else arb(math.nextafter(lo, -math.inf))
+    return np.maximum(x, 0.0)
+
+
+def lower_end(x):
+    """For arb: an exact ball at a float below the ball (so later steps cannot widen its meaning)."""
+    if isinstance(x, arb):
+        return arb(floor_arb(x))
+    return x
+
+
+def upper_end(x):
+    if isinstance(x, arb):
+        return arb(ceil_arb(x))
+    return x
+
+
+# ---------------------------------------------------------------------------------------------------------
+# intervals on expected counts
+# ---------------------------------------------------------------------------------------------------------
+def count_interval_float(method: str, observed, total, eps):
+    """Float (vectorised, real-valued) interval ``(lo, hi)`` on the expected count.
+
+    ``observed`` counts among ``total`` detections of the basis; ``eps`` the failure probability of each
+    side.  Accepts non-integer counts (expected counts during design); NOT certified.
+    """
+    c = np.asarray(observed, dtype=float)
+    C = np.asarray(total, dtype=float)
+    eps = np.asarray(eps, dtype=float)
+    if method == "hoeffding":
+        d = np.sqrt(C / 2.0 * np.log(1.0 / eps))
+        return c - d, c + d
+    if method == "exact":
+        with np.errstate(all="ignore"):
+            cc = np.clip(c, 0.0, C)
+            up = C * special.betainccinv(cc + 1.0, np.maximum(C - cc, 1e-300), eps)
+            lo = np.where(cc > 0, C * special.betaincinv(np.maximum(cc, 1e-300), C - cc + 1.0, eps), 0.0)
+        up = np.where(cc >= C, C, np.maximum(up, cc + 1.0))
+        lo = np.maximum(np.minimum(lo, cc - 1.0), 0.0)
+        return lo, np.minimum(up, C)
+    if method == "chernoff":
+        cc = np.maximum(c, 0.0)
+        return expectation_lower(cc, eps), expectation_upper(cc, eps)
+    raise ValueError(method)
+
+
+def count_interval_certified(method: str, observed: int, total: int, eps: float, prec: int = 128):
+    """Certified interval ``(lo, hi)`` (arb balls, exact at conservative floats) on an expected count.
+
+    Methods
+    -------
+    hoeffding : ``observed -/+ sqrt(total/2 ln(1/eps))`` (Hoeffding 1963, independent trials in [0, 1]).
+    exact : ``total`` times the one-sided Clopper-Pearson limits; valid for independent, non-identical
+        Bernoulli trials because the Poisson-binomial tail is dominated by the binomial one with the same
+        mean when the limit lies at least one count beyond the observation (Hoeffding 1956), which the
+        clamp ``hi >= observed + 1``, ``lo <= observed - 1`` enforces.
+    chernoff : multiplicative Chernoff bound (independent, non-identical Bernoulli trials).
+    """
+    c, C = int(observed), int(total)
+    with ctx.workprec(prec):
+        if method == "hoeffding":
+            d = (arb(C) / 2 * (1 / to_arb(eps)).log()).sqrt()
+            return arb(c) - d, arb(c) + d
+        if method == "exact":
+            if C == 0:
+                return arb(0), arb(0)
+            pu = binomial_upper_limit_certified(c, C, eps, prec)
+            pl = binomial_lower_limit_certified(c, C, eps, prec)
+            hi = arb(pu) * C
+            hi = arb(ceil_arb(hi))
+            if hi < c + 1:
+                hi = arb(min(c + 1, C))
+            lo = arb(floor_arb(arb(pl) * C))
+            if lo > c - 1:
+                lo = arb(max(c - 1, 0))
+            return lo, hi
+        if method == "chernoff":
+            return arb(expectation_lower_certified(c, eps, prec)), arb(expectation_upper_certified(c, eps, prec))
+    raise ValueError(method)
+
+
+# ---------------------------------------------------------------------------------------------------------
+# decoy closed forms
+# ---------------------------------------------------------------------------------------------------------
+def poisson_weights(mu, p, exp):
+    """tau_n = sum_k p_k e^{-mu_k} mu_k^n / n! for n = 0, 1 (probability that a pulse has n photons)."""
+    tau0 = sum(pk * exp(-mk) for mk, pk in zip(mu, p))
+    tau1 = sum(pk * mk * exp(-mk) for mk, pk in zip(mu, p))
+    return tau0, tau1
+
+
+def three_intensity(mu, p, lo, hi, exp):
+    """Lower bounds on vacuum and single-photon detections from three intensities (Lim et al. 2014).
+
+    Requires ``mu[0] > mu[1] + mu[2]`` and ``mu[1] > mu[2] >= 0``.  ``lo``/``hi`` bound the expected
+    detection counts per intensity (before rescaling).
+
+    Returns
+    -------
+    (s0, s1) : lower bounds on the vacuum and single-photon detections (not clipped below at 0 for s1;
+        s0 clipped at 0).
+    """
+    m1, m2, m3 = mu
+    r = [exp(mk) / pk for mk, pk in zip(mu, p)]
+    n1u, n2l, n2u, n3l, n3u = r[0] * hi[0], r[1] * lo[1], r[1] * hi[1], r[2] * lo[2], r[2] * hi[2]
+    tau0, tau1 = poisson_weights(mu, p, exp)
+    s0 = clip0(tau0 * (m2 * n3l - m3 * n2u) / (m2 - m3))
+    s1 = (tau1 * m1 * (n2l - n3u - (m2 * m2 - m3 * m3) / (m1 * m1) * (n1u - s0 / tau0))
+          / (m1 * (m2 - m3) - (m2 * m2 - m3 * m3)))
+    return s0, s1
+
+
+def three_intensity_errors(mu, p, lo, hi, exp):
+    """Upper bound on single-photon errors from the two weakest intensities (Lim et al. 2014)."""
+    m2, m3 = mu[1], mu[2]
+    tau0, tau1 = poisson_weights(mu, p, exp)
+    return tau1 * (exp(m2) / p[1] * hi[1] - exp(m3) / p[2] * lo[2]) / (m2 - m3)
+
+
+def two_intensity(mu, p, lo, hi, s0_upper, exp):
+    """Vacuum (lower) and single-photon (lower) detections from two intensities (Rusca et al. 2018).
+
+    ``s0_upper`` is an upper bound on the vacuum detections of the same basis (from its errors).
+    """
+    k1, k2 = mu
+    r1, r2 = exp(k1) / p[0], exp(k2) / p[1]
+    tau0, tau1 = poisson_weights(mu, p, exp)
+    s0 = clip0(tau0 / (k1 - k2) * (k1 * r2 * lo[1] - k2 * r1 * hi[0]))
+    s1 = (tau1 * k1 / (k2 * (k1 - k2))
+          * (r2 * lo[1] - k2 * k2 / (k1 * k1) * r1 * hi[0] - (k1 * k1 - k2 * k2) / (k1 * k1) * s0_upper / tau0))
+    return s0, s1
+
+
+def two_intensity_vacuum_upper(mu, p, err_hi_weak, vac_dev, exp):
+    """Upper bound on vacuum detections from the weak intensity's error count (Rusca et al. 2018).
+
+    A vacuum detection is an error with probability 1/2 whatever the adversary does, so
+    ``s0/2 - vac_dev <= v0 <= tau0 e^{mu_w} / p_w * E[m_w]`` except with the deviation's failure probability.
+    """
+    tau0, _ = poisson_weights(mu, p, exp)
+    return 2 * (tau0 * exp(mu[1]) / p[1] * err_hi_weak + vac_dev)
+
+
+def two_intensity_errors(mu, p, lo, hi, exp):
+    """Upper bound on single-photon errors from two intensities (Rusca et al. 2018)."""
+    k1, k2 = mu
+    _, tau1 = poisson_weights(mu, p, exp)
+    return tau1 / (k1 - k2) * (exp(k1) / p[0] * hi[0] - exp(k2) / p[1] * lo[1])
+
+
+def sampling_gamma(eps, lam, n_test, n_key, log):
+    """The 2014 sampling term: phase-error excess of n_key bits over the rate lam seen on n_test bits.
+
+    ``gamma = sqrt((c+d)(1-b)b/(c d ln 2) * log2((c+d)/(c d (1-b) b eps^2)))`` with ``c = n_test``,
+    ``d = n_key``, ``b = lam`` (from memory of Lim et al. 2014, their Eq. for gamma(a, b, c, d) with
+    ``a = eps``).
+    """
+    c, d, b = n_test, n_key, lam
+    inner = (c + d) / (c * d * (1 - b) * b * eps * eps)
+    val = (c + d) * (1 - b) * b / (c * d * LN2) * (log(inner) / LN2)
+    return val
+
+
+def binary_entropy_float(x):
+    x = np.clip(np.asarray(x, dtype=float), 1e-300, 0.5)
+    return -(x * np.log2(x) + (1 - x) * np.log1p(-x) / LN2)
+
+
+def binary_entropy_arb_upper(x: arb) -> arb:
+    """An exact ball >= h(x) for a ball x (h increasing on [0, 1/2]; capped at 1)."""
+    u = float(x.upper())
+    if u >= 0.5:
+        return arb(1)
+    if u <= 0:
+        return arb(0)
+    xu = arb(math.nextafter(u, math.inf))
+    h = -(xu * xu.log() + (1 - xu) * (-xu).log1p()) / arb(2).log()
+    return arb(ceil_arb(h))
+
+
+def require(cond: bool, msg: str):
+    if not cond:
+        raise ComputationError(msg)

@@ -1,0 +1,685 @@
+"""Decoy-state BB84 with phase-randomised weak coherent pulses: finite-key length, design and reach.
+
+Alice sends pulses of mean photon number ``mu_k`` (descending, chosen with probability ``p_k``) in basis X
+(key) or Z (test), each side choosing X with probability ``q_X``.  From the detections and errors seen per
+intensity in each basis, the analysis bounds
+
+* ``s0``, ``s1``: the vacuum and single-photon detections in the key basis (lower bounds),
+* ``v1``: the single-photon errors in the test basis (upper bound), and ``s1Z`` (lower),
+* ``phi``: the phase-error rate of the single-photon key bits (upper bound, by random sampling),
+
+and extracts
+
+.. math:: \\ell = \\Big\\lfloor s_0 + s_1\\,(1 - h(\\phi)) - \\lambda_{EC} - 4\\log_2\\tfrac{1}{\\varepsilon_{ch}}
+          - 2\\log_2\\tfrac{1}{\\varepsilon_{PA}} - \\log_2\\tfrac{2}{\\varepsilon_{cor}}\\Big\\rfloor ,
+
+which with every epsilon equal to ``eps_sec/21`` is the 2014 formula
+``s0 + s1 (1 - h(phi)) - leak - 6 log2(21/eps_sec) - log2(2/eps_cor)``.
+
+Statistics (``statistics=``):
+
+* ``"exact"`` (default): exact binomial (Clopper-Pearson) intervals on the counts per intensity, valid for
+  non-identical Bernoulli trials by Hoeffding's 1956 domination, and the exact hypergeometric bound on the
+  phase errors (finitekey.bounds.hypergeometric_exact), with an optimisable epsilon split;
+* ``"chernoff"``: multiplicative Chernoff intervals on the counts, exact hypergeometric phase errors;
+* ``"hoeffding"``: the 2014 reference: Hoeffding intervals ``n_k -/+ sqrt(n/2 ln(21/eps_sec))`` and the
+  Serfling-type sampling term ``gamma``, every epsilon ``eps_sec/21``.
+
+Analyses by intensity count: 3 intensities with ``mu1 > mu2 + mu3`` use the closed form of Lim et al.;
+2 intensities the one-decoy closed form of Rusca et al. (vacuum bounded from error counts); any other count
+(or 3 intensities violating the condition) the linear programme of :mod:`._decoy_lp`.
+
+See proofs_notes/protocols/decoy_bb84.md for the derivation, the epsilon accounting and the assumptions.
+
+References
+----------
+.. [1] C. C. W. Lim, M. Curty, N. Walenta, F. Xu, H. Zbinden, "Concise security bounds for practical
+   decoy-state quantum key distribution", Phys. Rev. A 89, 022307 (2014).
+.. [2] D. Rusca, A. Boaron, F. Grünenfelder, A. Martin, H. Zbinden, "Finite-key analysis for the 1-decoy
+   state QKD protocol", Appl. Phys. Lett. 112, 171104 (2018).
+.. [3] X. Ma, B. Qi, Y. Zhao, H.-K. Lo, "Practical decoy state for quantum key distribution",
+   Phys. Rev. A 72, 012326 (2005).
+.. [4] W. Hoeffding, "On the distribution of the number of successes in independent trials",
+   Ann. Math. Statist. 27, 713-721 (1956).
+.. [5] H.-K. Lo, X. Ma, K. Chen, "Decoy state quantum key distribution", Phys. Rev. Lett. 94, 230504 (2005).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field, replace
+
+import numpy as np
+from flint import arb, ctx
+from scipy import optimize as _opt
+
+from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
+from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
+from ..channel import Detector, Link, LinkModel, Source, check_intensity_list, repeaterless_bound
+from ..domains import COUNT, PROBABILITY, Domain
+from ..errors import ComputationError, InputError
+from . import _decoy_analysis as A
+from ._registry import register
+from ._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult
+
+__all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS",
+           "term_specs", "gllp_rate", "optimal_gllp_rate", "three_intensity_condition"]
+
+PROTOCOL_NAME = "decoy-bb84"
+STATISTICS = ("exact", "chernoff", "hoeffding")
+DEFAULT_STATISTICS = "exact"
+_PREC = 128
+#: The 2014 reference spends eps_sec/21 on every event.
+REFERENCE_UNITS = 21
+
+FORMULA = (r"\ell = \Big\lfloor s_{X,0}^{L} + s_{X,1}^{L}\,\big(1 - h(\phi_X^{U})\big) - \lambda_{EC}"
+           r" - 4\log_2\frac{1}{\varepsilon_{ch}} - 2\log_2\frac{1}{\varepsilon_{PA}}"
+           r" - \log_2\frac{2}{\varepsilon_{cor}}\Big\rfloor")
+
+REFERENCES = (
+    "C. C. W. Lim, M. Curty, N. Walenta, F. Xu, H. Zbinden, Phys. Rev. A 89, 022307 (2014)",
+    "D. Rusca, A. Boaron, C. Gruenenfelder, A. Martin, H. Zbinden, Appl. Phys. Lett. 112, 171104 (2018)",
+    "X. Ma, B. Qi, Y. Zhao, H.-K. Lo, Phys. Rev. A 72, 012326 (2005)",
+    "W. Hoeffding, Ann. Math. Statist. 27, 713-721 (1956)",
+    "M. Tomamichel, C. C. W. Lim, N. Gisin, R. Renner, Nat. Commun. 3, 634 (2012)",
+)
+
+ASSUMPTIONS = (
+    "Alice's pulses are phase-randomised weak coherent states with Poissonian photon number; intensities and "
+    "bases are chosen independently at random each round and the chosen intensity is not otherwise revealed",
+    "Bob's detection probability and basis choice do not depend on the basis (no efficiency mismatch); "
+    "threshold detectors with double clicks assigned a random bit",
+    "fixed-length protocol analysed as in the 2014 proof: the estimation failure events are charged once "
+    "each to eps_sec (see the proof note for what this assumes about conditioning on acceptance)",
+    "the single-photon key and test detections form a uniformly random split of all single-photon detections "
+    "(basis chosen independently of the photon number and of the adversary)",
+    "ec_leak_bits is the total number of bits disclosed by error correction",
+)
+
+_SHARE = Domain(0.0, 1.0, lower_open=True, upper_open=True)
+_POSITIVE = Domain(0.0, math.inf, lower_open=True)
+
+
+def three_intensity_condition(mu) -> bool:
+    """Whether intensities (descending) satisfy the closed form's ``mu1 > mu2 + mu3`` and ``mu2 > mu3 >= 0``."""
+    return len(mu) == 3 and mu[0] > mu[1] + mu[2] and mu[1] > mu[2] >= 0
+
+
+# ---------------------------------------------------------------------------------------------------------
+# epsilon accounting
+# ---------------------------------------------------------------------------------------------------------
+SECRECY_TERMS = ("count_estimation", "phase_error_sampling", "chain_rule", "privacy_amplification")
+
+
+def count_events(n_intensities: int, analysis: str) -> int:
+    """Number of one-sided count intervals the analysis uses (each charged its own epsilon)."""
+    if analysis == "three-intensity":
+        return 12   # key: n1+, n2-, n2+, n3-, n3+; test: the same 5; test errors: m2+, m3-
+    if analysis == "two-intensity":
+        return 10   # key: n1+, n2-, m2+ and vacuum sampling; test: n1+, n2-, m2+, vacuum sampling, m1+, m2-
+    return 4 * n_intensities  # LP: both sides of the detections of each intensity in each basis ... see _decoy_lp
+
+
+def term_specs(n_count: int) -> tuple:
+    """Ledger terms of the decoy analysis; ``n_count`` one-sided count intervals.
+
+    Default shares follow the 2014 per-event split (one unit per event) rescaled to spend all of eps_sec.
+    """
+    units = n_count + 1 + 4 + 1
+    return (
+        TermSpec("count_estimation", Role.SECRECY, n_count,
+                 f"{n_count} one-sided intervals on expected detection/error counts per intensity",
+                 n_count / units),
+        TermSpec("phase_error_sampling", Role.SECRECY, 1,
+                 "single-photon phase-error rate of the key exceeds its bound from the test-basis sample",
+                 1 / units),
+        TermSpec("chain_rule", Role.SECRECY, 4,
+                 "two chain-rule splits of the smooth min-entropy (vacuum / single / multi-photon), "
+                 "each smoothing counted twice", 4 / units),
+        TermSpec("privacy_amplification", Role.SECRECY, 1, "leftover hash lemma (two-universal hashing)",
+                 1 / units),
+        TermSpec("correctness", Role.CORRECTNESS, 1, "error-verification hash fails to detect a residual error"),
+    )
+
+
+def reference_ledger(eps_sec: float, eps_cor: float, n_count: int) -> Ledger:
+    """The 2014 choice: every secrecy event at eps_sec/21 (the weights add to at most 21)."""
+    e = math.nextafter(eps_sec / REFERENCE_UNITS, 0.0)
+    terms = []
+    for s in term_specs(n_count):
+        eps = eps_cor if s.role is Role.CORRECTNESS else e
+        terms.append(LedgerTerm(s.name, eps, s.role, s.weight, s.description))
+    led = Ledger(tuple(terms))
+    if led.eps_sec > eps_sec:
+        raise ComputationError(f"the 2014 accounting needs at most {REFERENCE_UNITS} units; this analysis uses "
+                               f"{sum(t.weight for t in terms if t.role is Role.SECRECY)}")
+    return led
+
+
+# ---------------------------------------------------------------------------------------------------------
+# the observed block
+# ---------------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class DecoyBlock:
+    """One observed block of decoy-state BB84 (validated by :meth:`DecoyBB84.parse_block`)."""
+
+    intensities: tuple
+    intensity_probabilities: tuple
+    key_detections: tuple
+    key_errors: tuple
+    test_detections: tuple
+    test_errors: tuple
+    ec_leak_bits: int
+    eps_sec: float
+    eps_cor: float
+    epsilon_split: dict | None = None
+
+    def as_dict(self) -> dict:
+        d = {"protocol": PROTOCOL_NAME, "intensities": list(self.intensities),
+             "intensity_probabilities": list(self.intensity_probabilities),
+             "key_basis": {"detections": list(self.key_detections), "errors": list(self.key_errors)},
+             "test_basis": {"detections": list(self.test_detections), "errors": list(self.test_errors)},
+             "ec_leak_bits": self.ec_leak_bits, "eps_sec": self.eps_sec, "eps_cor": self.eps_cor}
+        if self.epsilon_split is not None:
+            d["epsilon_split"] = dict(self.epsilon_split)
+        return d
+
+
+_BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
+                 "eps_sec", "eps_cor", "epsilon_split")
+
+
+def _probabilities(field_name: str, values, n: int) -> tuple:
+    if not isinstance(values, (list, tuple)):
+        raise InputError(field_name, values, f"a list of {n} probabilities in (0, 1) summing to 1")
+    if len(values) != n:
+        raise InputError(field_name, values, f"a list of {n} probabilities (one per intensity)")
+    out = tuple(float(PROBABILITY.check(f"{field_name}[{i}]", v)) if n > 1 else
+                float(Domain(0.0, 1.0, lower_open=True).check(f"{field_name}[{i}]", v)) for i, v in enumerate(values))
+    if abs(math.fsum(out) - 1.0) > 1e-9:
+        raise InputError(field_name, list(values), f"probabilities summing to 1 (they sum to {math.fsum(out)!r})")
+    return out
+
+
+def _count_list(field_name: str, values, n: int) -> tuple:
+    if not isinstance(values, (list, tuple)):
+        raise InputError(field_name, values, f"a list of {n} non-negative integers (one per intensity)")
+    if len(values) != n:
+        raise InputError(field_name, values, f"a list of {n} non-negative integers (one per intensity)")
+    return tuple(int(COUNT.check(f"{field_name}[{i}]", v)) for i, v in enumerate(values))
+
+
+def _basis(data, name: str, n: int):
+    if not isinstance(data, dict):
+        raise InputError(name, data, 'a table {"detections": [...], "errors": [...]}')
+    unknown = sorted(set(data) - {"detections", "errors"})
+    if unknown:
+        raise InputError(f"{name}.{unknown[0]}", data[unknown[0]], "only the fields detections, errors")
+    for key in ("detections", "errors"):
+        if key not in data:
+            raise InputError(f"{name}.{key}", None, f"a list of {n} non-negative integers (required)")
+    det = _count_list(f"{name}.detections", data["detections"], n)
+    err = _count_list(f"{name}.errors", data["errors"], n)
+    for i, (d, e) in enumerate(zip(det, err)):
+        if e > d:
+            raise InputError(f"{name}.errors[{i}]", e, f"an integer in [0, {d}] (errors cannot exceed the "
+                             f"detections {name}.detections[{i}] = {d})")
+    return det, err
+
+
+def parse_block(data: dict) -> DecoyBlock:
+    """Validate a block dictionary (JSON) and return a :class:`DecoyBlock`.
+
+    Raises
+    ------
+    InputError
+        Naming the field (``"key_basis.detections[1]"``, ``"intensities[2]"``, ...) for anything missing,
+        unknown, of the wrong type or out of range.
+    """
+    if not isinstance(data, dict):
+        raise InputError("block", data, "a JSON object with the decoy-bb84 block fields")
+    unknown = sorted(set(data) - set(_BLOCK_FIELDS))
+    if unknown:
+        raise InputError(unknown[0], data[unknown[0]], "one of the block fields " + ", ".join(_BLOCK_FIELDS))
+    if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
+        raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}'")
+    for key in ("intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits", "eps_sec",
+                "eps_cor"):
+        if key not in data:
+            raise InputError(key, None, "a value (required field)")
+    mu = check_intensity_list("intensities", data["intensities"])
+    if len(mu) < 2:
+        raise InputError("intensities", data["intensities"], "at least two intensities (signal and decoy)")
+    p = _probabilities("intensity_probabilities", data["intensity_probabilities"], len(mu))
+    kd, ke = _basis(data["key_basis"], "key_basis", len(mu))
+    td, te = _basis(data["test_basis"], "test_basis", len(mu))
+    leak = int(COUNT.check("ec_leak_bits", data["ec_leak_bits"]))
+    eps_sec = float(PROBABILITY.check("eps_sec", data["eps_sec"]))
+    eps_cor = float(PROBABILITY.check("eps_cor", data["eps_cor"]))
+    split = data.get("epsilon_split")
+    if split is not None:
+        split = _check_split(split)
+    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split)
+
+
+def _check_split(split) -> dict:
+    if not isinstance(split, dict):
+        raise InputError("epsilon_split", split, "a table of shares for " + ", ".join(SECRECY_TERMS))
+    unknown = sorted(set(split) - set(SECRECY_TERMS))
+    if unknown:
+        raise InputError(f"epsilon_split.{unknown[0]}", split[unknown[0]], "one of " + ", ".join(SECRECY_TERMS))
+    out = {}
+    for n in SECRECY_TERMS:
+        if n not in split:
+            raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term")
+        out[n] = float(_SHARE.check(f"epsilon_split.{n}", split[n]))
+    if abs(math.fsum(out.values()) - 1.0) > 1e-9:
+        raise InputError("epsilon_split", split, "shares summing to 1")
+    return out
+
+
+# ---------------------------------------------------------------------------------------------------------
+# key length
+# ---------------------------------------------------------------------------------------------------------
+def analysis_kind(mu) -> str:
+    if len(mu) == 2:
+        return "two-intensity"
+    if three_intensity_condition(mu):
+        return "three-intensity"
+    return "linear-programme"
+
+
+def block_ledger(block: DecoyBlock, statistics: str, analysis: str) -> Ledger:
+    n_count = count_events(len(block.intensities), analysis)
+    if statistics == "hoeffding" and block.epsilon_split is None:
+        return reference_ledger(block.eps_sec, block.eps_cor, n_count)
+    return allocate(block.eps_sec, block.eps_cor, term_specs(n_count), block.epsilon_split)
+
+
+def _intervals(method, counts, eps, prec):
+    total = sum(counts)
+    lo, hi = [], []
+    for c in counts:
+        a, b = A.count_interval_certified(method, c, total, eps, prec)
+        lo.append(a)
+        hi.append(b)
+    return lo, hi
+
+
+def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: float, prec: int) -> dict:
+    """Certified (arb) s0, s1 (key basis), s1Z (test basis), v1 (test basis) for the closed forms."""
+    mu = [arb(m) for m in block.intensities]
+    p = [arb(x) for x in block.intensity_probabilities]
+    exp = A.arb_exp
+    with ctx.workprec(prec):
+        kl, kh = _intervals(method, block.key_detections, eps_c, prec)
+        tl, th = _intervals(method, block.test_detections, eps_c, prec)
+        el, eh = _intervals(method, block.test_errors, eps_c, prec)
+        if analysis == "three-intensity":
+            s0, s1 = A.three_intensity(mu, p, kl, kh, exp)
+            _, s1z = A.three_intensity(mu, p, tl, th, exp)
+            v1 = A.three_intensity_errors(mu, p, el, eh, exp)
+        elif analysis == "two-intensity":
+            kel, keh = _intervals(method, block.key_errors, eps_c, prec)
+            vac_key = _vacuum_deviation(method, sum(block.key_detections), eps_c)
+            vac_test = _vacuum_deviation(method, sum(block.test_detections), eps_c)
+            s0u = A.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
+            s0, s1 = A.two_intensity(mu, p, kl, kh, s0u, exp)
+            s0zu = A.two_intensity_vacuum_upper(mu, p, eh[1], vac_test, exp)
+            _, s1z = A.two_intensity(mu, p, tl, th, s0zu, exp)
+            v1 = A.two_intensity_errors(mu, p, el, eh, exp)
+        else:
+            from . import _decoy_lp
+            return _decoy_lp.estimates(block, method, eps_c)
+        return {"s0": A.lower_end(A.clip0(s0)), "s1": A.lower_end(s1), "s1z": A.lower_end(s1z),
+                "v1": A.upper_end(v1)}
+
+
+def _vacuum_deviation(method: str, n_detections: int, eps: float) -> arb:
+    """Deviation of the vacuum error count below half the vacuum detections (at most n_detections trials).
+
+    Hoeffding's ``sqrt(n/2 ln(1/eps))`` for every method (the trials are fair coins; common practice as in
+    Rusca et al. 2018, from memory).
+    """
+    return (arb(n_detections) / 2 * (1 / arb(eps)).log()).sqrt()
+
+
+def _phase_error(method: str, est: dict, eps_p: float, prec: int):
+    """Upper bound on the single-photon phase-error rate of the key, as an exact arb ball (or 1/2 cap)."""
+    s1, s1z, v1 = est["s1"], est["s1z"], est["v1"]
+    if not (s1 > 0 and s1z > 0):
+        return arb(0.5), {}
+    if method == "hoeffding":
+        with ctx.workprec(prec):
+            lam = A.clip0(v1 / s1z)
+            lam = A.upper_end(lam)
+            if not lam > 0:
+                lam = arb(1e-300)
+            if lam >= arb(0.5):
+                return arb(0.5), {"single_photon_error_rate_test_upper": 0.5}
+            g2 = A.sampling_gamma(arb(eps_p), lam, s1z, s1, lambda x: x.log())
+            phi = lam + (A.clip0(g2)).sqrt()
+        phi_u = A.ceil_arb(phi)
+        return arb(min(phi_u, 0.5)), {"single_photon_error_rate_test_upper": A.ceil_arb(lam)}
+    # s1 is a lower bound on an integer count, so the count is at least ceil(s1); the bound uses ceil.
+    n = int(math.ceil(A.floor_arb(s1)))
+    k = int(math.ceil(A.floor_arb(s1z)))
+    e = int(math.floor(A.ceil_arb(v1))) if v1 > 0 else 0
+    e = min(max(e, 0), k)
+    if n < 1 or k < 1:
+        return arb(0.5), {}
+    t = key_errors_upper_certified(n, k, e, eps_p, prec)
+    phi = arb(t) / arb(n)
+    return (arb(0.5) if phi >= arb(0.5) else arb(A.ceil_arb(phi))), {
+        "single_photon_key_count": float(n), "single_photon_test_count": float(k),
+        "single_photon_test_errors_upper": float(e), "single_photon_key_phase_errors_upper": float(t)}
+
+
+def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PREC) -> KeyLengthResult:
+    """Certified secret key length of an observed decoy-state block.
+
+    Parameters
+    ----------
+    block : DecoyBlock
+    statistics : {"exact", "chernoff", "hoeffding"}, optional
+        Default ``"exact"``.
+    prec : int
+        Bits of ball arithmetic.
+
+    Returns
+    -------
+    KeyLengthResult
+        ``secret_key_length`` rounded down from the lower end of a ball containing the key-length formula
+        evaluated at conservative (outward-rounded) estimates; 0 when negative.
+
+    References
+    ----------
+    .. [1] C. C. W. Lim et al., Phys. Rev. A 89, 022307 (2014).
+    .. [2] D. Rusca et al., Appl. Phys. Lett. 112, 171104 (2018).
+    """
+    method = _check_statistics(statistics)
+    analysis = analysis_kind(block.intensities)
+    ledger = block_ledger(block, method, analysis)
+    eps_c = ledger.epsilon("count_estimation")
+    eps_p = ledger.epsilon("phase_error_sampling")
+    eps_ch = ledger.epsilon("chain_rule")
+    eps_pa = ledger.epsilon("privacy_amplification")
+    est = _estimates_certified(block, method, analysis, eps_c, prec)
+    phi, extra = _phase_error(method, est, eps_p, prec)
+    with ctx.workprec(prec):
+        s0 = est["s0"]
+        s1 = A.clip0(est["s1"])
+        h = A.binary_entropy_arb_upper(phi)
+        ln2 = arb(2).log()
+        chain = 4 * (1 / arb(eps_ch)).log() / ln2
+        pa = 2 * (1 / arb(eps_pa)).log() / ln2
+        tag = (2 / arb(block.eps_cor)).log() / ln2
+        leak = arb(block.ec_leak_bits)
+        single = s1 * (1 - h)
+        total = s0 + single - leak - chain - pa - tag
+    lower = float(total.lower())
+    length = max(0, int(math.floor(lower))) if math.isfinite(lower) else 0
+    terms = {"vacuum_bits": A.floor_arb(s0), "single_photon_bits": A.floor_arb(single),
+             "ec_leakage": float(block.ec_leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
+             "hash_penalty": A.ceil_arb(pa), "verification_tag": A.ceil_arb(tag),
+             "key_length_lower_bound": A.floor_arb(total)}
+    estimates = {"s0_lower": A.floor_arb(est["s0"]), "s1_lower": A.floor_arb(est["s1"]),
+                 "s1_test_lower": A.floor_arb(est["s1z"]), "e1_test_errors_upper": A.ceil_arb(est["v1"]),
+                 "phase_error_upper": A.ceil_arb(phi), **extra}
+    return KeyLengthResult(
+        protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
+        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",), terms=terms, estimates=estimates, formula=FORMULA,
+        references=REFERENCES)
+
+
+def _check_statistics(statistics):
+    if statistics is None:
+        return DEFAULT_STATISTICS
+    if statistics not in STATISTICS:
+        raise InputError("statistics", statistics, "one of: " + ", ".join(STATISTICS))
+    return statistics
+
+
+# ---------------------------------------------------------------------------------------------------------
+# asymptotic rates
+# ---------------------------------------------------------------------------------------------------------
+def gllp_rate(model: LinkModel, mu, ec_efficiency: float, sifting: float = 0.5):
+    """Asymptotic rate per pulse with infinitely many decoys (exact single-photon yield and error).
+
+    ``R = sifting * [Q1 (1 - h(e1)) - f Q_mu h(E_mu)]`` with ``Q1 = Y1 mu e^{-mu}`` (GLLP with the decoy
+    method, Lo-Ma-Chen 2005, Ma-Qi-Zhao-Lo 2005), clipped at 0.  Vectorised in ``mu``.
+
+    References
+    ----------
+    .. [1] X. Ma, B. Qi, Y. Zhao, H.-K. Lo, Phys. Rev. A 72, 012326 (2005).
+    """
+    mu = np.asarray(mu, dtype=float)
+    q = model.click_probability(mu)
+    eq = model.error_probability(mu) / q
+    y1 = float(model.photon_yield(1))
+    e1 = float(model.photon_error_yield(1)) / y1
+    q1 = y1 * mu * np.exp(-mu)
+    r = sifting * (q1 * (1 - A.binary_entropy_float(e1)) - ec_efficiency * q * A.binary_entropy_float(eq))
+    return np.maximum(r, 0.0)
+
+
+def optimal_gllp_rate(model: LinkModel, ec_efficiency: float, sifting: float = 0.5) -> tuple:
+    """``(rate, mu)`` maximising :func:`gllp_rate` over the signal intensity in (0, 2)."""
+    grid = np.linspace(0.01, 2.0, 200)
+    vals = gllp_rate(model, grid, ec_efficiency, sifting)
+    i = int(np.argmax(vals))
+    if vals[i] <= 0:
+        return 0.0, float(grid[i])
+    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+    res = _opt.minimize_scalar(lambda m: -float(gllp_rate(model, m, ec_efficiency, sifting)), bounds=(lo, hi),
+                               method="bounded", options={"xatol": 1e-7})
+    return float(-res.fun), float(res.x)
+
+
+# ---------------------------------------------------------------------------------------------------------
+# scenario
+# ---------------------------------------------------------------------------------------------------------
+_SCENARIO_SECTIONS = {
+    "protocol": ("name", "intensity_count", "intensities", "intensity_probabilities", "key_basis_probability",
+                 "weakest_intensity"),
+    "link": ("distance_km", "fiber_loss_db_per_km", "extra_loss_db"),
+    "detector": ("efficiency", "dark_count_probability", "afterpulse_probability", "misalignment_error",
+                 "dead_time_s"),
+    "source": ("repetition_rate_hz",),
+    "block": ("pulses",),
+    "security": ("eps_sec", "eps_cor"),
+    "reconciliation": ("efficiency",),
+}
+_REQUIRED = {
+    "protocol": ("name",),
+    "link": ("distance_km", "fiber_loss_db_per_km"),
+    "detector": ("efficiency", "dark_count_probability"),
+    "block": ("pulses",),
+    "security": ("eps_sec", "eps_cor"),
+    "reconciliation": ("efficiency",),
+}
+_EC_EFF = Domain(1.0, 10.0)
+_PULSES = Domain(1.0, 1e20)
+_COUNT_K = Domain(2, 8, integer=True)
+
+
+@dataclass(frozen=True)
+class DecoyScenario:
+    """A decoy-state link scenario: device model, block size, security targets and optional fixed choices.
+
+    Attributes
+    ----------
+    model : LinkModel
+    pulses : float
+        Pulses sent per block ``N``.
+    eps_sec, eps_cor : float
+    ec_efficiency : float
+        Reconciliation efficiency ``f >= 1``: leakage ``f n_X h(E_X)``.
+    intensity_count : int
+    intensities, intensity_probabilities : tuple or None
+        Fixed values (not optimised) when given.
+    key_basis_probability : float or None
+        Fixed ``q_X`` when given.
+    weakest_intensity : float
+        Value of the weakest intensity (fixed; e.g. a near-vacuum decoy), default 2e-4.
+    """
+
+    model: LinkModel
+    pulses: float
+    eps_sec: float
+    eps_cor: float
+    ec_efficiency: float
+    intensity_count: int = 3
+    intensities: tuple | None = None
+    intensity_probabilities: tuple | None = None
+    key_basis_probability: float | None = None
+    weakest_intensity: float = 2e-4
+
+    def as_dict(self) -> dict:
+        proto = {"name": PROTOCOL_NAME, "intensity_count": self.intensity_count,
+                 "weakest_intensity": self.weakest_intensity}
+        if self.intensities is not None:
+            proto["intensities"] = list(self.intensities)
+        if self.intensity_probabilities is not None:
+            proto["intensity_probabilities"] = list(self.intensity_probabilities)
+        if self.key_basis_probability is not None:
+            proto["key_basis_probability"] = self.key_basis_probability
+        src = {} if self.model.source.repetition_rate_hz is None else {
+            "repetition_rate_hz": self.model.source.repetition_rate_hz}
+        out = {"protocol": proto, "link": asdict(self.model.link), "detector": asdict(self.model.detector),
+               "block": {"pulses": self.pulses}, "security": {"eps_sec": self.eps_sec, "eps_cor": self.eps_cor},
+               "reconciliation": {"efficiency": self.ec_efficiency}}
+        if src:
+            out["source"] = src
+        return out
+
+
+def parse_scenario(data: dict) -> DecoyScenario:
+    """Validate a scenario dictionary (from TOML) and return a :class:`DecoyScenario`.
+
+    Raises
+    ------
+    InputError
+        Naming ``section`` or ``section.field`` for unknown or missing sections/fields and bad values.
+    """
+    if not isinstance(data, dict):
+        raise InputError("scenario", data, "a table of sections " + ", ".join(_SCENARIO_SECTIONS))
+    for sec in data:
+        if sec not in _SCENARIO_SECTIONS:
+            raise InputError(sec, data[sec], "one of the sections " + ", ".join(_SCENARIO_SECTIONS))
+        if not isinstance(data[sec], dict):
+            raise InputError(sec, data[sec], "a table of fields")
+        for key in data[sec]:
+            if key not in _SCENARIO_SECTIONS[sec]:
+                raise InputError(f"{sec}.{key}", data[sec][key], "one of the fields "
+                                 + ", ".join(f"{sec}.{k}" for k in _SCENARIO_SECTIONS[sec]))
+    for sec, keys in _REQUIRED.items():
+        if sec not in data:
+            raise InputError(sec, None, f"a [{sec}] section (required) with " + ", ".join(keys))
+        for key in keys:
+            if key not in data[sec]:
+                raise InputError(f"{sec}.{key}", None, "a value (required field)")
+    pr = data["protocol"]
+    if pr["name"] != PROTOCOL_NAME:
+        raise InputError("protocol.name", pr["name"], f"'{PROTOCOL_NAME}'")
+    k = int(_COUNT_K.check("protocol.intensity_count", pr.get("intensity_count", 3)))
+    mu = None
+    if "intensities" in pr:
+        mu = check_intensity_list("protocol.intensities", pr["intensities"])
+        if len(mu) != k:
+            raise InputError("protocol.intensities", pr["intensities"], f"a list of {k} intensities "
+                             "(protocol.intensity_count)")
+    probs = None
+    if "intensity_probabilities" in pr:
+        probs = _probabilities("protocol.intensity_probabilities", pr["intensity_probabilities"], k)
+    qx = None
+    if "key_basis_probability" in pr:
+        qx = float(PROBABILITY.check("protocol.key_basis_probability", pr["key_basis_probability"]))
+    weakest = float(Domain(0.0, 1.0).check("protocol.weakest_intensity", pr.get("weakest_intensity", 2e-4)))
+    if mu is not None:
+        weakest = mu[-1]
+    ln = data["link"]
+    link = Link(ln["distance_km"], ln["fiber_loss_db_per_km"], ln.get("extra_loss_db", 0.0))
+    dt = data["detector"]
+    det = Detector(dt["efficiency"], dt["dark_count_probability"], dt.get("afterpulse_probability", 0.0),
+                   dt.get("misalignment_error", 0.0), dt.get("dead_time_s", 0.0))
+    src = Source(data.get("source", {}).get("repetition_rate_hz"))
+    pulses = float(_PULSES.check("block.pulses", data["block"]["pulses"]))
+    sec = data["security"]
+    eps_sec = float(PROBABILITY.check("security.eps_sec", sec["eps_sec"]))
+    eps_cor = float(PROBABILITY.check("security.eps_cor", sec["eps_cor"]))
+    f = float(_EC_EFF.check("reconciliation.efficiency", data["reconciliation"]["efficiency"]))
+    return DecoyScenario(LinkModel(link, det, src), pulses, eps_sec, eps_cor, f, k, mu, probs, qx, weakest)
+
+
+def default_scenario() -> DecoyScenario:
+    """Built-in scenario: 50 km of 0.2 dB/km fibre, 10% detector, 1e10 pulses (common practice, no source)."""
+    return parse_scenario({
+        "protocol": {"name": PROTOCOL_NAME, "intensity_count": 3, "weakest_intensity": 2e-4},
+        "link": {"distance_km": 50.0, "fiber_loss_db_per_km": 0.2, "extra_loss_db": 0.0},
+        "detector": {"efficiency": 0.1, "dark_count_probability": 6e-7, "afterpulse_probability": 0.0,
+                     "misalignment_error": 0.005, "dead_time_s": 0.0},
+        "source": {"repetition_rate_hz": 1e9},
+        "block": {"pulses": 1e10},
+        "security": {"eps_sec": 1e-10, "eps_cor": 1e-15},
+        "reconciliation": {"efficiency": 1.16},
+    })
+
+
+def scenario_fields() -> list:
+    return [f"{s}.{k}" for s, keys in _SCENARIO_SECTIONS.items() for k in keys if (s, k) != ("protocol", "name")]
+
+
+def with_field(scenario: DecoyScenario, dotted_name: str, value) -> DecoyScenario:
+    if dotted_name not in scenario_fields():
+        raise InputError("field", dotted_name, "one of " + ", ".join(scenario_fields()))
+    sec, key = dotted_name.split(".", 1)
+    d = scenario.as_dict()
+    d.setdefault(sec, {})[key] = value
+    if sec == "protocol" and key == "weakest_intensity":
+        d["protocol"].pop("intensities", None)
+    return parse_scenario(d)
+
+
+# ---------------------------------------------------------------------------------------------------------
+# the protocol object
+# ---------------------------------------------------------------------------------------------------------
+class DecoyBB84:
+    """The registered ``decoy-bb84`` protocol object (see the module docstring)."""
+
+    name = PROTOCOL_NAME
+    statistics_methods = STATISTICS
+    default_statistics = DEFAULT_STATISTICS
+
+    def parse_block(self, data: dict) -> DecoyBlock:
+        return parse_block(data)
+
+    def key_length(self, block: DecoyBlock, statistics: str | None = None) -> KeyLengthResult:
+        return key_length(block, statistics)
+
+    def parse_scenario(self, data: dict) -> DecoyScenario:
+        return parse_scenario(data)
+
+    def default_scenario(self) -> DecoyScenario:
+        return default_scenario()
+
+    def design(self, scenario: DecoyScenario, statistics: str | None = None) -> DesignResult:
+        from ..optimize import decoy_design  # optimisation sits above protocols; imported on use
+        return decoy_design.design(scenario, _check_statistics(statistics))
+
+    def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None):
+        from ..optimize import decoy_design
+        return decoy_design.blocksize(scenario, target, _check_statistics(statistics))
+
+    def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> dict:
+        from ..optimize import decoy_design
+        return decoy_design.reach(scenario, _check_statistics(statistics))
+
+    def scenario_fields(self) -> list:
+        return scenario_fields()
+
+    def with_field(self, scenario: DecoyScenario, dotted_name: str, value) -> DecoyScenario:
+        return with_field(scenario, dotted_name, value)
+
+
+DECOY_BB84 = register(DecoyBB84())
