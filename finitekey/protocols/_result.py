@@ -140,6 +140,8 @@ class DesignResult:
     expected_counts: dict = field(default_factory=dict)
     block_fill_time_s: float | None = None
     scenario: dict = field(default_factory=dict)
+    secret_key_rate_per_detection: float | None = None
+    asymptotic_rate_per_detection: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -151,6 +153,10 @@ class DesignResult:
             "secret_key_rate_bps": None if self.secret_key_rate_bps is None else float(self.secret_key_rate_bps),
             "expected_counts": _finite(self.expected_counts),
             "block_fill_time_s": None if self.block_fill_time_s is None else float(self.block_fill_time_s),
+            "secret_key_rate_per_detection": (None if self.secret_key_rate_per_detection is None
+                                              else float(self.secret_key_rate_per_detection)),
+            "asymptotic_rate_per_detection": (None if self.asymptotic_rate_per_detection is None
+                                              else float(self.asymptotic_rate_per_detection)),
             "scenario": self.scenario,
             "expected": self.expected.to_dict(),
         }
@@ -234,13 +240,16 @@ class BlockSizeResult:
         ``"detections"``, ``"signals"`` or ``"pulses"``.
     design : DesignResult
         The design at that size.
+    resolution : int
+        The search stops when the bracket is this narrow: ``size - resolution`` was not shown to fail.
     """
 
     target: BlockTarget
     size: int
     size_kind: str
     design: DesignResult
+    resolution: int = 1
 
     def to_dict(self) -> dict:
         return {"target": self.target.to_dict(), "size": int(self.size), "size_kind": self.size_kind,
-                "design": self.design.to_dict()}
+                "resolution": int(self.resolution), "design": self.design.to_dict()}
