@@ -1,0 +1,298 @@
+"""Figures from sweep rows: key rate against a link field, smallest block size, the epsilon ledger.
+
+Figures are built on :class:`matplotlib.figure.Figure` with the Agg canvas
+(no pyplot, no global state); the house style is applied with
+:func:`matplotlib.rc_context` around drawing and saving only, never by changing
+the global ``rcParams``.  Every function here takes plain row data (lists of
+numbers, ledger dictionaries), so it can be tested without any protocol.
+
+The curves a rate plot shows:
+
+* one finite-key curve per block size (or per value of the second varied field);
+* the asymptotic (infinite-key) rate of the same device model, when the protocol provides it;
+* the repeaterless bound :math:`-\\log_2(1-\\eta)` of a pure-loss channel of
+  transmittance :math:`\\eta`, which no protocol without repeaters can beat.
+
+References
+----------
+.. [1] S. Pirandola, R. Laurenza, C. Ottaviani, L. Banchi, "Fundamental limits
+   of repeaterless quantum communications", Nat. Commun. 8, 15043 (2017) --
+   the bound :math:`-\\log_2(1-\\eta)` secret bits per channel use (computed by
+   :func:`finitekey.channel.repeaterless_bound`).
+.. [2] J. D. Hunter, "Matplotlib: A 2D graphics environment", Comput. Sci. Eng. 9, 90 (2007).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+from matplotlib import rc_context
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from ..channel import repeaterless_bound  # noqa: F401  (re-exported for the figure builders)
+from ..errors import InputError
+
+__all__ = ["Curve", "STYLE", "PLOT_FORMATS", "rate_figure", "blocksize_figure", "ledger_figure",
+           "figure_bytes", "axis_label", "use_log", "repeaterless_bound"]
+
+PLOT_FORMATS = ("png", "svg", "pdf")
+
+#: The house style: ink-blue frame, warm palette, light dotted grid, no top/right spines.
+STYLE = {
+    "font.family": "DejaVu Sans",
+    "font.size": 10.0,
+    "axes.facecolor": "#fbfaf6",
+    "figure.facecolor": "white",
+    "axes.edgecolor": "#2b3a55",
+    "axes.labelcolor": "#2b3a55",
+    "axes.titleweight": "bold",
+    "axes.titlesize": 11.0,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "axes.grid.which": "both",
+    "grid.color": "#c9c3b3",
+    "grid.linestyle": ":",
+    "grid.linewidth": 0.6,
+    "xtick.color": "#2b3a55",
+    "ytick.color": "#2b3a55",
+    "legend.frameon": False,
+    "legend.fontsize": 8.5,
+    "lines.linewidth": 1.8,
+    "svg.fonttype": "path",
+    "svg.hashsalt": "finitekey",  # reproducible SVG ids
+}
+
+#: Finite-key curves cycle through these (ochre, teal, plum, brick, olive, slate).
+PALETTE = ("#c8811a", "#1f7a74", "#7b4f8e", "#b23b2e", "#6b7d2a", "#44546a")
+MARKERS = ("o", "s", "D", "^", "v", "P")
+
+
+@dataclass(frozen=True)
+class Curve:
+    """One plotted line.
+
+    Attributes
+    ----------
+    label : str
+        Legend text.
+    x, y : tuple of float
+        Points; non-positive or missing ``y`` are dropped on a log axis.
+    kind : str
+        ``"finite"`` (markers, palette colour), ``"asymptotic"`` (dashed ink) or
+        ``"bound"`` (dotted grey, shaded region above it).
+    """
+
+    label: str
+    x: tuple
+    y: tuple
+    kind: str = "finite"
+    meta: dict = field(default_factory=dict)
+
+
+_UNITS = (("_db_per_km", "dB/km"), ("_km", "km"), ("_db", "dB"), ("_hz", "Hz"), ("_bps", "bit/s"),
+          ("_ns", "ns"), ("_ps", "ps"), ("_s", "s"), ("_m", "m"))
+
+_NAMES = {"qber": "QBER", "pulses": "pulses per block", "signals": "signals per block",
+          "detections": "detections per block", "distance_km": "distance", "size": "block size"}
+
+
+def axis_label(field_name: str, quantity: str | None = None) -> str:
+    """Axis text with unit for a dotted scenario field, e.g. ``link.distance_km`` -> ``distance (km)``."""
+    last = field_name.rsplit(".", 1)[-1]
+    unit = ""
+    for suffix, u in _UNITS:
+        if last.endswith(suffix):
+            unit = u
+            break
+    name = quantity or _NAMES.get(last)
+    if name is None:
+        base = last
+        for suffix, _ in _UNITS:
+            if base.endswith(suffix):
+                base = base[: -len(suffix)]
+                break
+        name = base.replace("_", " ")
+    if last == "qber" or "error" in last or "efficiency" in last:
+        unit = unit or "fraction"
+    return f"{name} ({unit})" if unit else name
+
+
+def use_log(values: Sequence) -> bool:
+    """Log axis when every value is positive and they span at least two decades (common practice, no source)."""
+    vals = [float(v) for v in values if v is not None and isinstance(v, (int, float)) and not isinstance(v, bool)]
+    if len(vals) < 2 or min(vals) <= 0:
+        return False
+    return max(vals) / min(vals) >= 100.0
+
+
+def _new_figure(size=(7.0, 4.4)) -> Figure:
+    fig = Figure(figsize=size, dpi=110, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _points(c: Curve, logy: bool, logx: bool):
+    xs, ys = [], []
+    for x, y in zip(c.x, c.y):
+        if x is None or y is None:
+            continue
+        x, y = float(x), float(y)
+        if not (math.isfinite(x) and math.isfinite(y)):
+            continue
+        if (logy and y <= 0) or (logx and x <= 0):
+            continue
+        xs.append(x)
+        ys.append(y)
+    return xs, ys
+
+
+def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
+    finite = 0
+    for c in curves:
+        xs, ys = _points(c, logy, logx)
+        if not xs:
+            continue
+        if c.kind == "finite":
+            col = PALETTE[finite % len(PALETTE)]
+            ax.plot(xs, ys, color=col, marker=MARKERS[finite % len(MARKERS)], markersize=4.0,
+                    markerfacecolor="white", markeredgewidth=1.2, label=c.label, zorder=3)
+            finite += 1
+        elif c.kind == "asymptotic":
+            ax.plot(xs, ys, color="#2b3a55", linestyle=(0, (6, 3)), linewidth=1.5, label=c.label, zorder=2)
+        elif c.kind == "bound":
+            ax.plot(xs, ys, color="#8a8478", linestyle=(0, (1, 2)), linewidth=1.6, label=c.label, zorder=1)
+            top = max(ys) * (10 if logy else 1.2)
+            ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.08, linewidth=0, zorder=0)
+        else:
+            raise InputError("curve.kind", c.kind, "one of: finite, asymptotic, bound")
+    if logx:
+        ax.set_xscale("log")
+    if logy:
+        ax.set_yscale("log")
+
+
+def _finish(ax, fig, title, note) -> None:
+    if title:
+        ax.set_title(title, loc="left")
+    handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        ax.legend(loc="best")
+    if note:
+        fig.text(0.01, 0.005, note, fontsize=7, color="#6d6658", ha="left", va="bottom")
+
+
+def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key rate (bit/pulse)",
+                title: str = "", logx: bool = False, logy: bool = True, note: str = "") -> Figure:
+    """Key rate against one field: finite-key curves, the asymptotic curve and the repeaterless bound.
+
+    Raises
+    ------
+    InputError
+        If no curve has a point that can be drawn (e.g. every rate is zero on a log axis).
+    """
+    with rc_context(STYLE):
+        fig = _new_figure()
+        ax = fig.add_subplot()
+        drawable = [c for c in curves if _points(c, logy, logx)[0]]
+        if not drawable:
+            raise InputError("plot", "no positive key rate at any point",
+                             "a sweep with at least one positive key rate (try a shorter distance or a larger block)")
+        if ylabel.endswith("(bit/pulse)") and any(c.kind == "bound" for c in drawable):
+            ylabel = ylabel.replace("(bit/pulse)", "(bit per pulse / channel use)")
+        _draw_curves(ax, drawable, logx, logy)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        _finish(ax, fig, title, note)
+    return fig
+
+
+def blocksize_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "smallest block size",
+                     title: str = "", logx: bool = False, logy: bool = True, note: str = "") -> Figure:
+    """Smallest block size reaching a target, against one field (one curve per value of a second field)."""
+    with rc_context(STYLE):
+        fig = _new_figure()
+        ax = fig.add_subplot()
+        drawable = [c for c in curves if _points(c, logy, logx)[0]]
+        if not drawable:
+            raise InputError("plot", "no point reached the block-size target",
+                             "a sweep where at least one point has a block size")
+        _draw_curves(ax, drawable, logx, logy)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        _finish(ax, fig, title, note)
+    return fig
+
+
+def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: str = "") -> Figure:
+    """Horizontal bars of each ledger term's contribution (weight x epsilon), log scale, coloured by role.
+
+    Parameters
+    ----------
+    ledger : list of dict
+        ``Ledger.as_list()`` rows: ``name``, ``epsilon``, ``role``, ``weight``, ``contribution``.
+
+    Raises
+    ------
+    InputError
+        For an empty ledger or a non-positive contribution.
+    """
+    if not ledger:
+        raise InputError("ledger", ledger, "at least one term")
+    names = [str(t["name"]) for t in ledger]
+    weights = [int(t.get("weight", 1)) for t in ledger]
+    contrib = [float(t["contribution"]) for t in ledger]
+    eps = [float(t["epsilon"]) for t in ledger]
+    # weight-0 terms (e.g. an estimation failure that enters only through another term) are drawn at their
+    # epsilon, hatched, and do not count in the total.
+    shown = [c if w != 0 else e for c, e, w in zip(contrib, eps, weights)]
+    for n, v in zip(names, shown):
+        if not (math.isfinite(v) and v > 0):
+            raise InputError(f"ledger.{n}.contribution", v, "a positive finite number")
+    roles = [str(t.get("role", "")) for t in ledger]
+    colours = {"secrecy": "#1f7a74", "correctness": "#c8811a"}
+    with rc_context(STYLE):
+        fig = _new_figure((7.0, 1.4 + 0.42 * len(names)))
+        ax = fig.add_subplot()
+        ypos = np.arange(len(names))[::-1]
+        for y, v, r, w in zip(ypos, shown, roles, weights):
+            ax.barh([y], [v], color="white" if w == 0 else colours.get(r, "#7b4f8e"), height=0.6, zorder=3,
+                    edgecolor=colours.get(r, "#7b4f8e"), hatch="///" if w == 0 else None)
+        for y, w, e, v in zip(ypos, weights, eps, shown):
+            label = f"{w} × {e:.2e}" if w > 1 else (f"{v:.2e}" if w == 1 else f"{e:.2e} (weight 0)")
+            ax.text(v * 1.15, y, label, va="center", fontsize=7.5, color="#2b3a55")
+        contrib = [c for c in contrib if c > 0] or shown
+        ax.set_yticks(ypos, names)
+        ax.set_xscale("log")
+        lo = min(shown)
+        total = math.fsum(contrib)
+        ax.set_xlim(lo / 10, total * 30)
+        ax.axvline(total, color="#b23b2e", linestyle=(0, (4, 2)), linewidth=1.2,
+                   label=f"total epsilon = {total:.2e}")
+        ax.set_xlabel("contribution to the security parameter (weight × epsilon)")
+        for role, col in colours.items():
+            if role in roles:
+                ax.barh([], [], color=col, label=f"{role} term")
+        if 0 in weights:
+            ax.barh([], [], color="white", edgecolor="#44546a", hatch="///",
+                    label="weight 0: enters through another term, not added")
+        ax.grid(axis="y", visible=False)
+        _finish(ax, fig, title, note)
+    return fig
+
+
+def figure_bytes(fig: Figure, fmt: str) -> bytes:
+    """Encode a figure as PNG, SVG or PDF bytes (deterministic metadata)."""
+    if fmt not in PLOT_FORMATS:
+        raise InputError("format", fmt, "one of: " + ", ".join(PLOT_FORMATS))
+    buf = io.BytesIO()
+    meta = {"png": {"Software": "finitekey"}, "svg": {"Date": None, "Creator": "finitekey"},
+            "pdf": {"CreationDate": None, "ModDate": None, "Creator": "finitekey", "Producer": "finitekey"}}[fmt]
+    with rc_context(STYLE):
+        fig.savefig(buf, format=fmt, dpi=110 if fmt == "png" else None, metadata=meta)
+    return buf.getvalue()
