@@ -50,7 +50,8 @@ def serfling_tail(n, N, delta):
     ----------
     .. [1] R. J. Serfling, Ann. Statist. 2 (1974) 39-48.
     """
-    return sp.exp(-2 * n * delta**2 / (1 - (n - 1) / N))
+    # 1 - (n-1)/N written as (N - n + 1)/N: the same number, without cancellation when n is close to N.
+    return sp.exp(-2 * n * N * delta**2 / (N - n + 1))
 
 
 class _SerflingBound(SymbolicBound):
