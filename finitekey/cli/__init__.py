@@ -13,9 +13,11 @@ import sys
 
 from .. import __version__
 from ..errors import ComputationError, InputError
-from . import bounds_cmd
+from . import blocksize_cmd, bounds_cmd, design_cmd, keylength_cmd
+from . import plot_cmd, report_cmd, table_cmd
 
-COMMANDS = [bounds_cmd.LIST, bounds_cmd.EVAL]
+COMMANDS = [bounds_cmd.LIST, bounds_cmd.EVAL, keylength_cmd.COMMAND, design_cmd.COMMAND, blocksize_cmd.COMMAND]
+COMMANDS += [table_cmd.TABLE, plot_cmd.PLOT, report_cmd.REPORT]  # sweeps, plots, reports
 
 
 def build_parser() -> argparse.ArgumentParser:

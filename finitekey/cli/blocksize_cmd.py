@@ -1,0 +1,42 @@
+"""``finitekey blocksize [SCENARIO.toml] --target positive|bits=L|fraction=F`` -- smallest block for a target."""
+
+from __future__ import annotations
+
+import argparse
+from types import SimpleNamespace
+
+from ..protocols import BlockTarget
+from .design_cmd import load_scenario, render_design
+from .render import caution_block, fmt, table, to_json
+
+__all__ = ["COMMAND"]
+
+
+def _args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", nargs="?", default=None, help="scenario file (TOML); default: built-in scenario")
+    p.add_argument("--target", required=True,
+                   help="'positive' (any key), 'bits=L' (at least L key bits) or 'fraction=F' (F of the "
+                        "asymptotic rate)")
+    p.add_argument("--statistics", default=None, help="parameter-estimation statistics (default: the scenario's)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+
+
+def _run(args) -> int:
+    target = BlockTarget.parse(args.target)
+    proto, sc = load_scenario(args.scenario)
+    res = proto.blocksize(sc, target, args.statistics)
+    if args.json:
+        print(to_json(res.to_dict()))
+        return 0
+    rows = [["target", str(res.target), ""], ["smallest block", fmt(int(res.size)), res.size_kind]]
+    if getattr(res, "resolution", 1) > 1:
+        rows.append(["search resolution", fmt(int(res.resolution)), res.size_kind])
+    print(table(rows, ["quantity", "value", "unit"]))
+    print("\nDesign at that size:")
+    print(render_design(res.design))
+    print("\n" + caution_block())
+    return 0
+
+
+COMMAND = SimpleNamespace(NAME="blocksize", HELP="smallest block size reaching a key target, with its design",
+                          add_arguments=_args, run=_run)

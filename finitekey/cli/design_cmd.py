@@ -1,0 +1,90 @@
+"""``finitekey design [SCENARIO.toml]`` -- choose the free parameters (basis bias, test fraction, epsilon split).
+
+Without a file the built-in scenario of the default protocol is used (a fictional link of our own).
+``--reach`` asks the protocol for its maximal distance (link scenarios, decoy-bb84).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from types import SimpleNamespace
+
+from .. import protocols
+from ..errors import InputError
+from ..files import read_toml
+from .keylength_cmd import render_ledger
+from .render import caution_block, fmt, table, to_json
+
+__all__ = ["COMMAND", "load_scenario", "render_design"]
+
+
+def load_scenario(path):
+    """Return ``(protocol, scenario)`` from a TOML file, or the default protocol's built-in scenario."""
+    if path is None:
+        proto = protocols.get(protocols.DEFAULT_PROTOCOL)
+        return proto, proto.default_scenario()
+    data = read_toml(path)
+    section = data.get("protocol", {})
+    if not isinstance(section, dict):
+        raise InputError("protocol", section, "a TOML table [protocol] with name = \"...\"")
+    name = section.get("name", protocols.DEFAULT_PROTOCOL)
+    proto = protocols.get(name)
+    return proto, proto.parse_scenario(data)
+
+
+def _args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("scenario", nargs="?", default=None, help="scenario file (TOML); default: built-in scenario")
+    p.add_argument("--statistics", default=None, help="parameter-estimation statistics (default: the scenario's)")
+    p.add_argument("--reach", action="store_true", help="report the maximal distance (link scenarios only)")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
+
+
+def _value(v):
+    if isinstance(v, dict):
+        return ", ".join(f"{k}={fmt(x)}" for k, x in v.items())
+    return fmt(v)
+
+
+def render_design(d) -> str:
+    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
+    rows += [["expected: " + k, fmt(v), "count" if k != "key_qber" else "fraction"] for k, v in d.expected_counts.items()]
+    rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
+    rows.append(["secret key rate", fmt(d.secret_key_rate_per_signal), "bits per signal"])
+    if getattr(d, "secret_key_rate_per_detection", None) is not None:
+        rows.append(["secret key rate", fmt(d.secret_key_rate_per_detection), "bits per detection"])
+    if getattr(d, "asymptotic_rate_per_detection", None) is not None:
+        rows.append(["asymptotic rate", fmt(d.asymptotic_rate_per_detection), "bits per detection"])
+    if d.secret_key_rate_bps is not None:
+        rows.append(["secret key rate", fmt(d.secret_key_rate_bps), "bits per second"])
+    if d.block_fill_time_s is not None:
+        rows.append(["block fill time", fmt(d.block_fill_time_s), "s"])
+    return "\n".join([f"Design ({d.protocol}, statistics {d.expected.statistics})",
+                      table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
+                      render_ledger(d.expected.ledger)])
+
+
+def _run(args) -> int:
+    proto, sc = load_scenario(args.scenario)
+    if args.reach:
+        reach = getattr(proto, "reach", None)
+        if reach is None:
+            raise InputError("--reach", proto.name, "a link scenario (decoy-bb84); this protocol has no reach")
+        out = reach(sc, args.statistics)
+        if args.json:
+            print(to_json(out))
+        else:
+            print(table([[k, _value(v)] for k, v in out.items()], ["quantity", "value"]))
+            print("\n" + caution_block())
+        return 0
+    d = proto.design(sc, args.statistics)
+    if args.json:
+        print(to_json(d.to_dict()))
+        return 0
+    print(render_design(d))
+    print("\n" + caution_block())
+    return 0
+
+
+COMMAND = SimpleNamespace(NAME="design", HELP="choose basis bias, test fraction and epsilon split for a scenario",
+                          add_arguments=_args, run=_run)
