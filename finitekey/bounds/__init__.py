@@ -16,3 +16,4 @@ from ._registry import all_bounds, get, names, register
 
 from . import hoeffding  # noqa: E402,F401  (each import registers its bounds)
 from . import serfling, random_sampling, chernoff, kato  # noqa: E402,F401  (symbolic concentration bounds)
+from . import binomial_exact, hypergeometric_exact  # noqa: E402,F401  (exact computed tails)

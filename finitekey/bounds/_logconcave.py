@@ -1,0 +1,350 @@
+"""Tails of log-concave integer distributions whose consecutive terms have rational ratios.
+
+Private machinery shared by :mod:`.binomial_exact` and :mod:`.hypergeometric_exact`.
+
+Method
+------
+A tail ``Pr[X <= x]`` (or ``Pr[X >= x]``) is written as ``p(x) * S`` with
+``S = sum_i P_i``, ``P_0 = 1`` and ``P_{i+1} = P_i * r_i``, where ``r_i`` is
+the ratio of consecutive terms, walking *away from the mode*.  Both
+distributions are log-concave, so these ratios are non-increasing along the
+walk; once a term ``P_L`` is negligible, every later term is bounded by a
+geometric series of ratio ``r_L < 1`` and the remainder is at most
+``P_{L-1} r_L / (1 - r_L)``.  When the requested tail lies across the mode
+its complement is summed instead.
+
+* The start term ``p(x)`` is computed from ``lgamma`` in arb ball arithmetic
+  (the float path takes the ball's midpoint): plain float ``lgamma``
+  differences lose about ``1e-3`` absolute at populations of ``1e12``.
+* The sum ``S`` is computed in float64 with numpy, in chunks (ratios are
+  products and quotients of integers that float64 holds exactly below
+  ``2**53``; the running products are ``np.multiply.accumulate``).
+* **Certified enclosure.** The float sum only uses IEEE-754 multiplication,
+  division and addition of positive normal numbers, each correctly rounded
+  (relative error at most ``u = 2**-53``).  Whatever the order of the
+  operations, a value obtained from exact data through ``m`` such
+  operations carries a factor ``1 + theta`` with ``|theta| <= gamma_m = m u
+  / (1 - m u)`` (a standard lemma of rounding-error analysis).  Counting
+  ``m`` generously per term gives ``S`` in ``[S_hat/(1+gamma),
+  S_hat/(1-gamma)]`` plus the remainder, computed with an arb-evaluated
+  ratio.  No library ``log`` or ``exp`` of float64 is trusted anywhere.
+  Included terms are never below ``2**-64`` of the running sum, hence far
+  from the subnormal range where the rounding model fails.  This is tighter
+  (about ``1e-9`` relative at ``1e6`` terms) and faster than bounding blocks
+  of terms by geometric series.
+
+References
+----------
+.. [1] N. J. Higham, *Accuracy and Stability of Numerical Algorithms*, 2nd ed.,
+   SIAM (2002), Lemma 3.1 (products of ``1 + delta`` factors) and section 4.2
+   (summation error).
+.. [2] F. Johansson, "Arb: efficient arbitrary-precision midpoint-radius
+   interval arithmetic", IEEE Trans. Computers 66 (2017) 1281-1292.
+.. [3] S. Karlin, *Total Positivity*, Stanford University Press (1968)
+   (log-concavity of the binomial and hypergeometric distributions).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from flint import arb, ctx
+
+from ..errors import ComputationError
+
+__all__ = ["Binomial", "Hypergeometric", "log_cdf", "log_sf", "cdf_ball", "sf_ball", "lnbinom_arb",
+           "MAX_POPULATION"]
+
+#: Largest population (number of trials) accepted: every integer met in a ratio stays exact in float64.
+MAX_POPULATION = 2**50
+
+_U = 2.0**-53          # unit roundoff of float64, round to nearest
+_THRESHOLD = 2.0**-64  # terms below this fraction of the running sum end the walk
+_FIRST_CHUNK = 512
+_MAX_CHUNK = 1 << 16
+_WORK_PREC = 128       # bits for arb start terms (|lgamma| <= 3e16, so >= 2**-70 absolute)
+
+
+def _lgamma1(m: int) -> arb:
+    """ln(m!) as an arb ball at the current precision."""
+    return arb(m + 1).lgamma()
+
+
+def lnbinom_arb(a: int, b: int) -> arb:
+    """ln C(a, b) as an arb ball at the current working precision (0 <= b <= a)."""
+    return _lgamma1(a) - _lgamma1(b) - _lgamma1(a - b)
+
+
+# ---- distributions ---------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Binomial:
+    """Binomial(n, p) with p a float64 in [0, 1], taken exactly."""
+
+    n: int
+    p: float
+    #: rounding errors incurred by one float ratio (1-p, division, product, quotient)
+    roundings: int = 4
+    #: optional exact success probability as an arb ball (used by the arb-only walk); defaults to ``p``
+    p_arb: object = None
+
+    def _parb(self) -> arb:
+        return arb(self.p) if self.p_arb is None else self.p_arb
+
+    @property
+    def lo(self) -> int:
+        return 0 if self.p < 1.0 else self.n
+
+    @property
+    def hi(self) -> int:
+        return self.n if self.p > 0.0 else 0
+
+    @property
+    def float_ok(self) -> bool:
+        return 1e-280 < self.p and (1.0 - self.p) > 1e-280
+
+    def mode_side(self, x: int) -> int:
+        """-1 if x is at or below the mode (walk down), +1 if above."""
+        return -1 if x <= math.floor((self.n + 1) * self.p) else 1
+
+    def log_pmf_arb(self, j: int) -> arb:
+        p = self._parb()
+        if self.p == 0.0 or self.p == 1.0:
+            return arb(0) if j == self.lo else arb("-inf")
+        return lnbinom_arb(self.n, j) + j * p.log() + (self.n - j) * (-p).log1p()
+
+    def down_ratio(self, js: np.ndarray) -> np.ndarray:
+        """p(j-1)/p(j) = j (1-p) / ((n-j+1) p), float64."""
+        c = (1.0 - self.p) / self.p
+        return (js * c) / ((self.n + 1.0) - js)
+
+    def up_ratio(self, js: np.ndarray) -> np.ndarray:
+        """p(j+1)/p(j) = (n-j) p / ((j+1)(1-p)), float64."""
+        c = self.p / (1.0 - self.p)
+        return ((self.n - js) * c) / (js + 1.0)
+
+    def down_ratio_arb(self, j: int) -> arb:
+        p = self._parb()
+        return arb(j) * (1 - p) / (arb(self.n - j + 1) * p)
+
+    def up_ratio_arb(self, j: int) -> arb:
+        p = self._parb()
+        return arb(self.n - j) * p / (arb(j + 1) * (1 - p))
+
+
+@dataclass(frozen=True)
+class Hypergeometric:
+    """Number of marked items in a uniform sample of ``k`` from ``N`` items of which ``K`` are marked."""
+
+    N: int
+    K: int
+    k: int
+    #: ln C(N, k), if the caller has it already (saves three lgamma calls)
+    log_norm: arb | None = None
+    roundings: int = 3  # two products and a quotient
+
+    @property
+    def lo(self) -> int:
+        return max(0, self.k - (self.N - self.K))
+
+    @property
+    def hi(self) -> int:
+        return min(self.k, self.K)
+
+    float_ok = True
+
+    def mode_side(self, x: int) -> int:
+        return -1 if x <= ((self.k + 1) * (self.K + 1)) // (self.N + 2) else 1
+
+    def log_pmf_arb(self, j: int) -> arb:
+        norm = self.log_norm if self.log_norm is not None else lnbinom_arb(self.N, self.k)
+        return lnbinom_arb(self.K, j) + lnbinom_arb(self.N - self.K, self.k - j) - norm
+
+    def down_ratio(self, js: np.ndarray) -> np.ndarray:
+        """h(j-1)/h(j) = j (N-K-k+j) / ((K-j+1)(k-j+1)), float64."""
+        c = float(self.N - self.K - self.k)
+        return (js * (js + c)) / (((self.K + 1.0) - js) * ((self.k + 1.0) - js))
+
+    def up_ratio(self, js: np.ndarray) -> np.ndarray:
+        """h(j+1)/h(j) = (K-j)(k-j) / ((j+1)(N-K-k+j+1)), float64."""
+        c = float(self.N - self.K - self.k + 1)
+        return ((self.K - js) * (self.k - js)) / ((js + 1.0) * (js + c))
+
+    def down_ratio_arb(self, j: int) -> arb:
+        return arb(j * (self.N - self.K - self.k + j)) / arb((self.K - j + 1) * (self.k - j + 1))
+
+    def up_ratio_arb(self, j: int) -> arb:
+        return arb((self.K - j) * (self.k - j)) / arb((j + 1) * (self.N - self.K - self.k + j + 1))
+
+
+# ---- the walk --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _Walk:
+    total: float       # float sum of the included P_i (P_0 = 1)
+    terms: int         # number of included terms
+    chunks: int
+    last: float        # last included P_i
+    next_ratio_at: int | None  # point whose ratio produces the first excluded term; None if support exhausted
+
+
+def _walk(fam, start: int, step: int) -> _Walk:
+    """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support."""
+    ratio = fam.down_ratio if step < 0 else fam.up_ratio
+    avail = (start - fam.lo) if step < 0 else (fam.hi - start)
+    total, last, j, chunks, terms, size = 1.0, 1.0, start, 0, 1, _FIRST_CHUNK
+    while avail > 0:
+        m = min(size, avail)
+        js = np.arange(m, dtype=np.float64)
+        if step < 0:
+            js = float(j) - js
+        else:
+            js += float(j)
+        with np.errstate(all="ignore"):
+            prods = np.multiply.accumulate(ratio(js))
+            prods *= last
+        chunks += 1
+        small = prods < _THRESHOLD * total
+        if small.any():
+            idx = int(np.argmax(small))
+            if idx:
+                total += float(prods[:idx].sum())
+                last = float(prods[idx - 1])
+            return _Walk(total, terms + idx, chunks, last, j + step * idx)
+        total += float(prods.sum())
+        terms += m
+        last = float(prods[-1])
+        j += step * m
+        avail -= m
+        size = min(size * 4, _MAX_CHUNK)
+    return _Walk(total, terms, chunks, last, None)
+
+
+def _walk_log(fam, start: int, step: int) -> float:
+    """Float natural log of the tail sum from ``start`` in direction ``step`` (start term included)."""
+    with ctx.workprec(_WORK_PREC):
+        log_start = float(fam.log_pmf_arb(start).mid())
+    if not fam.float_ok:
+        with ctx.workprec(_WORK_PREC):
+            return float(_walk_arb(fam, start, step, _WORK_PREC).log().mid())
+    w = _walk(fam, start, step)
+    return log_start + math.log(w.total)
+
+
+def _walk_ball(fam, start: int, step: int, prec: int) -> arb:
+    """Arb ball guaranteed to contain the tail sum from ``start`` in direction ``step``."""
+    prec = max(prec, _WORK_PREC)
+    if not fam.float_ok:
+        return _walk_arb(fam, start, step, prec)
+    w = _walk(fam, start, step)
+    with ctx.workprec(prec):
+        m = arb((fam.roundings + 2) * (w.terms + 1) + 2 * w.chunks + 8)
+        gamma = m * _U / (1 - m * _U)
+        s_hat = arb(w.total)
+        lo = s_hat / (1 + gamma)
+        hi = s_hat / (1 - gamma)
+        if w.next_ratio_at is not None:
+            r = (fam.down_ratio_arb if step < 0 else fam.up_ratio_arb)(w.next_ratio_at)
+            if not (r < 1):
+                return _walk_arb(fam, start, step, prec)
+            hi = hi + arb(w.last) / (1 - gamma) * r / (1 - r)
+        sums = arb(lo.lower()).union(arb(hi.upper()))
+        return fam.log_pmf_arb(start).exp() * sums
+
+
+def _walk_arb(fam, start: int, step: int, prec: int, max_terms: int = 10**7) -> arb:
+    """Reference walk entirely in arb (slow: about a microsecond per term)."""
+    ratio = fam.down_ratio_arb if step < 0 else fam.up_ratio_arb
+    end = fam.lo if step < 0 else fam.hi
+    with ctx.workprec(prec):
+        tol = arb(2) ** (-prec)
+        total, term, j = arb(1), arb(1), start
+        for _ in range(max_terms):
+            if j == end:
+                return fam.log_pmf_arb(start).exp() * total
+            r = ratio(j)
+            if r < 1 and term * r / (1 - r) < tol * total:
+                rem = term * r / (1 - r)
+                return fam.log_pmf_arb(start).exp() * (total + arb(0).union(rem.upper()))
+            term = term * r
+            total = total + term
+            j += step
+    raise ComputationError(f"tail sum did not converge within {max_terms} terms")
+
+
+# ---- tails -----------------------------------------------------------------------------------------------
+def log_cdf(fam, x: int) -> float:
+    """Natural log of ``Pr[X <= x]`` in float64 (``-inf`` below the support)."""
+    if x < fam.lo:
+        return -math.inf
+    if x >= fam.hi:
+        return 0.0
+    if fam.mode_side(x) < 0:
+        return _walk_log(fam, x, -1)
+    return math.log1p(-math.exp(_walk_log(fam, x + 1, +1)))
+
+
+def log_sf(fam, x: int) -> float:
+    """Natural log of ``Pr[X >= x]`` in float64 (``-inf`` above the support)."""
+    if x > fam.hi:
+        return -math.inf
+    if x <= fam.lo:
+        return 0.0
+    if fam.mode_side(x) > 0:
+        return _walk_log(fam, x, +1)
+    return math.log1p(-math.exp(_walk_log(fam, x - 1, -1)))
+
+
+def cdf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
+    """Arb ball containing ``Pr[X <= x]`` exactly."""
+    with ctx.workprec(max(prec, _WORK_PREC)):
+        if x < fam.lo:
+            return arb(0)
+        if x >= fam.hi:
+            return arb(1)
+        if fam.mode_side(x) < 0:
+            return _clip01(_walk_ball(fam, x, -1, prec))
+        return _clip01(1 - _walk_ball(fam, x + 1, +1, prec))
+
+
+def sf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
+    """Arb ball containing ``Pr[X >= x]`` exactly."""
+    with ctx.workprec(max(prec, _WORK_PREC)):
+        if x > fam.hi:
+            return arb(0)
+        if x <= fam.lo:
+            return arb(1)
+        if fam.mode_side(x) > 0:
+            return _clip01(_walk_ball(fam, x, +1, prec))
+        return _clip01(1 - _walk_ball(fam, x - 1, -1, prec))
+
+
+def tail_arb_reference(fam, x: int, lower: bool, prec: int) -> arb:
+    """Ball for ``Pr[X <= x]`` (lower) or ``Pr[X >= x]`` summed entirely in arb at ``prec`` bits."""
+    with ctx.workprec(prec):
+        if lower:
+            if x < fam.lo:
+                return arb(0)
+            if x >= fam.hi:
+                return arb(1)
+            if fam.mode_side(x) < 0:
+                return _clip01(_walk_arb(fam, x, -1, prec))
+            return _clip01(1 - _walk_arb(fam, x + 1, +1, prec))
+        if x > fam.hi:
+            return arb(0)
+        if x <= fam.lo:
+            return arb(1)
+        if fam.mode_side(x) > 0:
+            return _clip01(_walk_arb(fam, x, +1, prec))
+        return _clip01(1 - _walk_arb(fam, x - 1, -1, prec))
+
+
+def _clip01(b: arb) -> arb:
+    """Intersect a probability ball with [0, 1] (the exact value is a probability)."""
+    lo = b.lower()
+    hi = b.upper()
+    if lo < 0:
+        lo = arb(0)
+    if hi > 1:
+        hi = arb(1)
+    return arb(lo).union(arb(hi))
