@@ -100,8 +100,9 @@ def test_hypergeometric_cdf_matches_scipy(N, K, k):
 
 
 # ---- tails at populations 1e9..1e12 against 60-digit mpmath ---------------------------------------------
-BIG_BINOM = [(10**9, 2e-6, 1800), (10**12, 1e-9, 850), (10**12, 3e-9, 2800)]
-BIG_HYPER = [(10**9, 2 * 10**7, 10**5, 1800), (10**12, 10**9, 10**6, 880), (10**12, 3 * 10**10, 4 * 10**4, 1000)]
+BIG_BINOM = [(10**9, 2e-6, 1800), (10**12, 1e-9, 850), (10**12, 3e-9, 2800), (10**12, 1e-6, 997_000)]
+BIG_HYPER = [(10**9, 2 * 10**7, 10**5, 1800), (10**12, 10**9, 10**6, 880), (10**12, 3 * 10**10, 4 * 10**4, 1000),
+             (10**12, 10**10, 10**8, 997_000)]
 
 
 @pytest.mark.parametrize("n,p,x", BIG_BINOM)
@@ -283,6 +284,24 @@ def test_hypergeometric_bound_interface():
     assert float(h.failure_probability_mp(ds, **small)) == pytest.approx(ref, rel=1e-9)
     assert h.failure_probability(-0.5, **small) == 1.0 and h.failure_probability(0.99, **small) == 0.0
     assert h.deviation(1e-3, n=50, k=10, e=10) == pytest.approx(0.0)   # all tested bits wrong: no bound
+
+
+def test_sampling_bound_coverage_literal_placement():
+    # Monte Carlo, literally: T error positions among n + k, a uniformly random k-subset tested
+    # (Generator.permuted row by row); coverage frequency within eps + 4 standard deviations.
+    n, k, eps, trials = 120, 80, 1e-2, 20_000
+    N = n + k
+    table = np.array([e + key_errors_upper(n, k, e, eps) for e in range(k + 1)])
+    xs = np.arange(0, k + 1)
+    miss = [stats.hypergeom.pmf(xs, N, T, k)[table < T].sum() for T in range(N + 1)]
+    T = int(np.argmax(miss))
+    rng = np.random.default_rng(777)
+    rows = np.zeros((trials, N), dtype=bool)
+    rows[:, :T] = True
+    x = rng.permuted(rows, axis=1)[:, :k].sum(axis=1)
+    freq = np.mean(table[x] < T)
+    assert freq <= eps + 4 * math.sqrt(eps / trials)
+    assert abs(freq - miss[T]) <= 5 * math.sqrt(miss[T] / trials) + 1e-6
 
 
 # ---- bad input -----------------------------------------------------------------------------------------
