@@ -434,11 +434,11 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
 
 
 def key_length_batch(blocks, statistics=None, *, prec: int = 128) -> list:
-    """Key lengths of many blocks, sharing ledger and exact-bound caches (same results as :func:`key_length`).
+    """Key lengths of many blocks (results identical to :func:`key_length`, block by block).
 
-    Blocks whose formula is negative even with no phase error at all (``n log2(1/c) - leak - tag - hash < 0``,
-    checked in float64 with a wide margin) get 0 without further work; 0 never overstates.  Every other block
-    is certified individually.
+    The blocks share one ledger cache and one cache of certified phase-error bounds keyed by
+    ``(n, k, e, eps)``: in a post-processing stream the block sizes repeat and the test errors take few
+    values, so most blocks cost one ball evaluation of the compiled formula.  Every length is certified.
     """
     cache: dict = {}
     out = []
