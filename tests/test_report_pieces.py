@@ -255,7 +255,7 @@ def test_ledger_figure_bars_and_total():
     ax = fig.axes[0]
     widths = sorted(p.get_width() for p in ax.patches if p.get_width() > 0)
     assert widths == sorted([1e-15, 5e-11, 5e-11, 6.25e-22])
-    total_line = [ln for ln in ax.get_lines() if "total" in (ln.get_label() or "")][0]
+    total_line = [ln for ln in ax.get_lines() if ln.get_gid() == "total-epsilon"][0]
     assert total_line.get_xdata()[0] == pytest.approx(1e-15 + 1e-10, rel=1e-12)
     with pytest.raises(InputError):
         ledger_figure([])

@@ -20,7 +20,7 @@ from .formats import short_number
 from .plots import Curve, axis_label, blocksize_figure, ledger_figure, rate_figure, repeaterless_bound, use_log
 from .sweep import SweepTable, _scenario_at
 
-__all__ = ["series", "reference_curves", "rate_plot", "blocksize_plot", "ledger_plot", "KINDS"]
+__all__ = ["series", "rate_quantity", "reference_curves", "rate_plot", "blocksize_plot", "ledger_plot", "KINDS"]
 
 KINDS = ("rate", "blocksize", "ledger")
 
@@ -51,38 +51,73 @@ def series(table: SweepTable, value_key: str) -> list:
         if r.get("error"):
             continue
         groups[key][0].append(r["point"][xf])
-        groups[key][1].append(r.get(value_key))
+        value = (r.get("design") or {}).get("secret_key_rate_per_detection") if value_key == "_per_detection" \
+            else r.get(value_key)
+        groups[key][1].append(value)
     curves = []
     for key in (family.values if family is not None else [None]):
         xs, ys = groups.get(key, ([], []))
-        label = "finite key" if family is None else f"{axis_label(family.field).split(' (')[0]} = {short_number(key)}"
+        label = "finite key" if family is None else f"{axis_label(family.field).split(' (')[0]} = {_compact(key)}"
         curves.append(Curve(label=label, x=tuple(xs), y=tuple(ys), kind="finite", meta={"family": key}))
     return curves
 
 
-def _transmittance(proto, scenario):
-    for name in ("transmittance", "channel_transmittance", "link_transmittance"):
-        fn = getattr(proto, name, None)
-        if callable(fn):
-            return float(fn(scenario))
+def _compact(v) -> str:
+    """Legend value: 1e+09 -> 1e9, 0.02 -> 0.02."""
+    if isinstance(v, (int, float)) and not isinstance(v, bool) and v != 0 and (abs(v) >= 1e5 or abs(v) < 1e-3):
+        m, e = f"{float(v):.3g}".split("e")
+        return f"{m}e{int(e)}"
+    return short_number(v)
+
+
+def rate_quantity(table: SweepTable) -> tuple:
+    """Which rate to plot: ``(row key, design key, unit)``.
+
+    Per detection when every computed row has a per-detection rate (protocols
+    whose scenario has no link model, such as ``bb84``, state their asymptotic
+    rate per detection); otherwise per pulse (signal) sent.
+    """
+    ok = [r for r in table.rows if not r.get("error")]
+    if ok and all((r.get("design") or {}).get("secret_key_rate_per_detection") is not None for r in ok):
+        return "secret_key_rate_per_detection", "bit/detection"
+    return "secret_key_rate_per_pulse", "bit/pulse"
+
+
+def _fibre_transmittance(scenario):
+    """Transmittance of the link alone (no detector): the channel the repeaterless bound is about."""
+    model = getattr(scenario, "model", None)
+    link = getattr(model, "link", None)
+    loss = getattr(link, "loss_db", None)
+    if loss is None:
+        return None
+    from ..channel import transmittance
+    return float(transmittance(loss, 1.0))
+
+
+def _asymptotic(proto, scenario, unit: str):
+    """Asymptotic (infinite-block) rate in ``unit``, from the protocol's own functions, or None."""
+    if unit == "bit/detection":
+        fn = getattr(proto, "asymptotic_rate", None)  # bb84: per detection, p_X -> 1
+        return float(fn(scenario)) if callable(fn) else None
+    if proto.name == "decoy-bb84":
+        from ..protocols import decoy_bb84
+        # infinite decoys, no sifting loss: the same asymptote the block-size target 'fraction=F' refers to
+        rate, _ = decoy_bb84.optimal_gllp_rate(scenario.model, scenario.ec_efficiency, sifting=1.0)
+        return float(rate)
     return None
 
 
-def _asymptotic(proto, scenario, statistics):
-    for name in ("asymptotic_rate", "asymptotic_key_rate"):
-        fn = getattr(proto, name, None)
-        if callable(fn):
-            return float(fn(scenario))
-    return None
-
-
-def reference_curves(table: SweepTable, loaded) -> list:
+def reference_curves(table: SweepTable, loaded, unit: str = "bit/pulse") -> list:
     """The asymptotic curve and the repeaterless bound along the first axis, when the protocol offers them.
 
-    The protocol may provide ``asymptotic_rate(scenario)`` (bits per pulse,
-    infinite block, same device model) and ``transmittance(scenario)`` (the
-    channel's end-to-end transmittance :math:`\\eta`, detector included as the
-    protocol defines it).  Points where a value cannot be computed are left out.
+    * asymptotic rate: ``bb84.asymptotic_rate`` (per detection) or, for
+      ``decoy-bb84``, :func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate`
+      with infinitely many decoys and no sifting loss (per pulse);
+    * repeaterless bound: :func:`finitekey.channel.repeaterless_bound` at the
+      fibre transmittance :math:`\\eta = 10^{-\\mathrm{loss}/10}` of the link (per
+      channel use = per pulse; drawn only for rates per pulse).
+
+    Points where a value cannot be computed are left out.
     """
     proto = loaded.protocol_object()
     xf = table.axes[0].field
@@ -94,16 +129,13 @@ def reference_curves(table: SweepTable, loaded) -> list:
         except FiniteKeyError:
             continue
         try:
-            a = _asymptotic(proto, scenario, table.statistics)
+            a = _asymptotic(proto, scenario, unit)
         except FiniteKeyError:
             a = None
         if a is not None:
             asym_x.append(x)
             asym_y.append(a)
-        try:
-            eta = _transmittance(proto, scenario)
-        except FiniteKeyError:
-            eta = None
+        eta = _fibre_transmittance(scenario) if unit == "bit/pulse" else None
         if eta is not None and 0 <= eta < 1:
             bound_x.append(x)
             bound_y.append(float(repeaterless_bound(eta)))
@@ -112,19 +144,21 @@ def reference_curves(table: SweepTable, loaded) -> list:
         out.append(Curve("asymptotic rate (infinite block, same devices)", tuple(asym_x), tuple(asym_y),
                          kind="asymptotic"))
     if bound_x:
-        out.append(Curve("repeaterless bound  −log₂(1−η)", tuple(bound_x), tuple(bound_y), kind="bound"))
+        out.append(Curve("repeaterless bound −log₂(1−η), η = fibre transmittance", tuple(bound_x), tuple(bound_y),
+                         kind="bound"))
     return out
 
 
 def rate_plot(table: SweepTable, loaded, references: bool = True, title: str | None = None):
-    """Key rate per pulse against the first varied field, with reference curves."""
-    curves = series(table, "secret_key_rate_per_pulse")
+    """Key rate against the first varied field, one curve per value of the second, with reference curves."""
+    key, unit = rate_quantity(table)
+    curves = series(table, key if key != "secret_key_rate_per_detection" else "_per_detection")
     if references:
-        curves += reference_curves(table, loaded)
+        curves += reference_curves(table, loaded, unit)
     xs = table.axes[0].values
     name = title if title is not None else f"{table.protocol}: secret key rate"
-    return rate_figure(curves, axis_label(table.axes[0].field), title=name, logx=use_log(xs), logy=True,
-                       note=_note(table))
+    return rate_figure(curves, axis_label(table.axes[0].field), ylabel=f"secret key rate ({unit})", title=name,
+                       logx=use_log(xs), logy=True, note=_note(table))
 
 
 def blocksize_plot(table: SweepTable, title: str | None = None):

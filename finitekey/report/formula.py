@@ -2,7 +2,7 @@
 
 Mathtext covers most of what ``sympy.latex`` prints.  For the few commands it
 lacks, :func:`mathtext_source` rewrites them to equivalents (``\\operatorname``
-and ``\\text`` to ``\\mathrm``, ``\\left``/``\\right`` dropped when mathtext
+and ``\\text`` to ``\\mathrm``, fixed-size delimiters ``\\big``/``\\Big`` dropped, ``\\left``/``\\right`` dropped when mathtext
 refuses them); if the formula still cannot be parsed, :func:`render_formula`
 says so and the report shows the LaTeX source instead of a picture.
 
@@ -39,7 +39,10 @@ _REWRITES = (
     (re.compile(r"\\text\{([^{}]*)\}"), r"\\mathrm{\1}"),
     (re.compile(r"\\mathbf\{([^{}]*)\}"), r"\\mathbf{\1}"),
     (re.compile(r"\\displaystyle\s*"), ""),
+    (re.compile(r"\\(?:Bigg|bigg|Big|big)[lrm]?(?![a-zA-Z])\s*"), ""),
     (re.compile(r"\\!"), ""),
+    (re.compile(r"\\le(?![a-zA-Z])"), r"\\leq"),
+    (re.compile(r"\\ge(?![a-zA-Z])"), r"\\geq"),
     (re.compile(r"\\limits"), ""),
     (re.compile(r"\\quad"), r"\\ \\ "),
 )
@@ -86,5 +89,6 @@ def render_formula(latex: str, fmt: str = "svg", fontsize: float = 15.0, dpi: in
         try:
             return RenderedFormula(latex, src, fmt, _try(src, fmt, fontsize, dpi), True)
         except (ValueError, RuntimeError) as exc:
-            last = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            lines = [ln.strip() for ln in str(exc).splitlines() if ln.strip()]
+            last = lines[-1] if lines else type(exc).__name__
     return RenderedFormula(latex, src, fmt, None, False, f"mathtext could not parse the formula: {last}")

@@ -42,8 +42,9 @@ h3 { font-size:0.95rem; margin:1rem 0 0.3rem; color:var(--muted); text-transform
 table { border-collapse:collapse; font-size:0.85rem; margin:0.4rem 0 0.8rem; }
 th, td { padding:0.22rem 0.6rem; border-bottom:1px solid var(--line); text-align:left; vertical-align:top; }
 th { background:#efeadd; font-weight:600; }
-td.num { text-align:right; font-variant-numeric: tabular-nums; font-family:"DejaVu Sans Mono", monospace; }
+td.num { text-align:right; white-space:nowrap; font-variant-numeric: tabular-nums; font-family:"DejaVu Sans Mono", monospace; }
 .scroll { overflow-x:auto; }
+.grid { display:flex; flex-wrap:wrap; gap:0 1.6rem; align-items:flex-start; }
 .cards { display:flex; flex-wrap:wrap; gap:0.8rem; }
 .card { background:white; border:1px solid var(--line); border-left:4px solid var(--accent); padding:0.5rem 0.9rem;
         min-width:12rem; }
@@ -69,7 +70,7 @@ def _cell(x) -> str:
     if isinstance(x, (int, float)) and not isinstance(x, bool):
         return f'<td class="num">{_e(short_number(x))}</td>'
     if isinstance(x, (list, tuple)):
-        return f'<td class="num">{_e(short_number(list(x)))}</td>'
+        return f'<td class="num">{_e(", ".join(short_number(v) for v in x))}</td>'
     if isinstance(x, dict):
         return f"<td><code>{_e(json.dumps(x, sort_keys=True))}</code></td>"
     return f"<td>{_e(short_number(x) if x is None else x)}</td>"
@@ -132,7 +133,7 @@ def to_html(report) -> str:
              f"<header><h1>{_e(r.title)}</h1><p>protocol <strong>{_e(r.protocol)}</strong> · input "
              f"{_e(r.provenance.get('input', ''))} · finitekey {_e(r.provenance.get('version', ''))}</p></header>",
              "<main>",
-             f'<p class="caution" id="caution-top"><strong>Caution.</strong> {_e(r.caution)}</p>']
+             f'<p class="caution" id="caution-top">{_e(r.caution)}</p>']
 
     # summary
     cards = [("secret key length", f"{int(row['secret_key_length']):,} bit".replace(",", " ")),
@@ -148,12 +149,16 @@ def to_html(report) -> str:
     # scenario and device model
     sec = ["<section>", h2("Scenario and device model"),
            "<p>The scenario file as read (every field validated by the protocol), section by section.</p>"]
+    sec.append('<div class="grid">')
     for name, content in r.scenario_data.items():
+        sec.append('<div class="block">')
         if isinstance(content, dict):
             sec.append(f"<h3>[{_e(name)}]</h3>")
             sec.append(_table(f"scenario-{name}", ["field", "value"], _kv_rows(content)))
         else:
             sec.append(_table(None, ["field", "value"], [[name, content]]))
+        sec.append("</div>")
+    sec.append("</div>")
     if r.scenario_echo:
         sec.append("<details><summary>validated scenario (as the protocol echoes it, defaults filled in)</summary>"
                    + _table("scenario-echo", ["field", "value"], _kv_rows(r.scenario_echo)) + "</details>")

@@ -33,6 +33,8 @@ import numpy as np
 from matplotlib import rc_context
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 
 from ..channel import repeaterless_bound  # noqa: F401  (re-exported for the figure builders)
 from ..errors import InputError
@@ -184,7 +186,7 @@ def _finish(ax, fig, title, note) -> None:
     if handles:
         ax.legend(loc="best")
     if note:
-        fig.text(0.01, 0.005, note, fontsize=7, color="#6d6658", ha="left", va="bottom")
+        fig.text(0.995, 0.995, note, fontsize=6.5, color="#6d6658", ha="right", va="top")
 
 
 def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key rate (bit/pulse)",
@@ -257,7 +259,7 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
     roles = [str(t.get("role", "")) for t in ledger]
     colours = {"secrecy": "#1f7a74", "correctness": "#c8811a"}
     with rc_context(STYLE):
-        fig = _new_figure((7.0, 1.4 + 0.42 * len(names)))
+        fig = _new_figure((7.0, 2.0 + 0.42 * len(names)))
         ax = fig.add_subplot()
         ypos = np.arange(len(names))[::-1]
         for y, v, r, w in zip(ypos, shown, roles, weights):
@@ -272,17 +274,16 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
         lo = min(shown)
         total = math.fsum(contrib)
         ax.set_xlim(lo / 10, total * 30)
-        ax.axvline(total, color="#b23b2e", linestyle=(0, (4, 2)), linewidth=1.2,
-                   label=f"total epsilon = {total:.2e}")
+        ax.axvline(total, color="#b23b2e", linestyle=(0, (4, 2)), linewidth=1.2, gid="total-epsilon")
         ax.set_xlabel("contribution to the security parameter (weight × epsilon)")
-        for role, col in colours.items():
-            if role in roles:
-                ax.barh([], [], color=col, label=f"{role} term")
+        handles = [Line2D([], [], color="#b23b2e", linestyle=(0, (4, 2)), label=f"total epsilon = {total:.2e}")]
+        handles += [Patch(facecolor=col, label=f"{role} term") for role, col in colours.items() if role in roles]
         if 0 in weights:
-            ax.barh([], [], color="white", edgecolor="#44546a", hatch="///",
-                    label="weight 0: enters through another term, not added")
+            handles.append(Patch(facecolor="white", edgecolor="#44546a", hatch="///",
+                                 label="weight 0: enters through another term, not added"))
         ax.grid(axis="y", visible=False)
         _finish(ax, fig, title, note)
+        fig.legend(handles=handles, loc="outside lower center", ncol=2)
     return fig
 
 

@@ -24,7 +24,6 @@ References
 from __future__ import annotations
 
 import hashlib
-import inspect
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,6 +33,7 @@ from .. import __version__
 from .. import protocols
 from ..errors import FiniteKeyError, InputError
 from ..files import read_toml
+from ..optimize.dispatch import scenario_from_dict
 from .grid import Axis, GridPoint, expand_grid, parse_vary
 from .runner import run_map
 
@@ -73,9 +73,10 @@ class LoadedScenario:
 def load_scenario(path) -> LoadedScenario:
     """Read and validate a scenario TOML file.
 
-    The protocol is named by the ``[protocol]`` section's ``name``; the whole
-    file is validated by that protocol's ``parse_scenario`` before any sweep
-    starts.
+    The protocol is named by the ``[protocol]`` section's ``name`` (default
+    :data:`finitekey.protocols.DEFAULT_PROTOCOL`, as for ``finitekey design``);
+    the whole file is validated by that protocol's ``parse_scenario`` before any
+    sweep starts.
 
     Raises
     ------
@@ -83,13 +84,8 @@ def load_scenario(path) -> LoadedScenario:
         For a missing file, bad TOML, an unknown protocol or an invalid scenario.
     """
     data = read_toml(path)
-    section = data.get("protocol")
-    if not isinstance(section, dict) or "name" not in section:
-        raise InputError("protocol.name", None, "a [protocol] section with name = one of: "
-                         + ", ".join(protocols.names()))
-    name = section["name"]
-    proto = protocols.get(name)
-    proto.parse_scenario(data)  # validate now: errors surface before workers start
+    proto, _ = scenario_from_dict(data, protocols.DEFAULT_PROTOCOL)  # validates now, before workers start
+    name = proto.name
     digest = hashlib.sha256(Path(path).read_bytes()).hexdigest()
     return LoadedScenario(protocol=name, data=data, path=str(path), sha256=digest)
 
@@ -107,24 +103,54 @@ class PointTask:
     target: str | None = None
 
 
-def fixed_evaluator(proto):
-    """The protocol's fixed-parameter evaluation, or None.
+#: How each protocol's own scenario fields switch the optimiser off: the fields that must be given (the free
+#: parameters) and the fields the sweep sets so that ``design`` evaluates instead of optimising.  A protocol
+#: that offers ``evaluate(scenario, statistics=None)`` is used directly instead.
+FIXED_PARAMETER_FIELDS = {
+    "bb84": (("design.p_x",), (("design.optimise_split", False),)),
+    "decoy-bb84": (("protocol.intensities", "protocol.intensity_probabilities", "protocol.key_basis_probability"),
+                   ()),
+}
 
-    A protocol supports ``--fixed`` when it offers ``design(scenario, statistics=..., fixed=True)``
-    or a method ``evaluate(scenario, statistics=None)`` returning a
-    :class:`~finitekey.protocols.DesignResult` computed with the scenario's own
-    parameters (no optimisation).
+
+def _given(data: dict, dotted: str) -> bool:
+    sec, _, key = dotted.partition(".")
+    return isinstance(data.get(sec), dict) and key in data[sec]
+
+
+def fixed_evaluator(proto, data: dict | None = None):
+    """How to evaluate the key length with the scenario's own parameters (``--fixed``), or None.
+
+    Returns a function ``(scenario, statistics) -> DesignResult``.  Uses the
+    protocol's ``evaluate(scenario, statistics=None)`` when it has one;
+    otherwise the protocol's scenario convention in
+    :data:`FIXED_PARAMETER_FIELDS` (every free parameter given in the file,
+    optimiser switched off through a scenario field).
+
+    Raises
+    ------
+    InputError
+        If the scenario (``data``) does not fix every free parameter.
     """
     fn = getattr(proto, "evaluate", None)
     if callable(fn):
         return lambda scenario, statistics: fn(scenario, statistics=statistics)
-    try:
-        params = inspect.signature(proto.design).parameters
-    except (TypeError, ValueError):  # pragma: no cover
-        params = {}
-    if "fixed" in params:
-        return lambda scenario, statistics: proto.design(scenario, statistics=statistics, fixed=True)
-    return None
+    conv = FIXED_PARAMETER_FIELDS.get(proto.name)
+    if conv is None:
+        return None
+    required, settings = conv
+    if data is not None:
+        missing = [f for f in required if not _given(data, f)]
+        if missing:
+            raise InputError("--fixed", ", ".join(missing),
+                             "a scenario that gives every free parameter of " + proto.name + " ("
+                             + ", ".join(required) + "); --fixed never runs the optimiser")
+
+    def run(scenario, statistics):
+        for name, value in settings:
+            scenario = proto.with_field(scenario, name, value)
+        return proto.design(scenario, statistics=statistics)
+    return run
 
 
 def _scenario_at(proto, data: dict, assignments) :
@@ -185,7 +211,7 @@ def evaluate_point(task: PointTask) -> dict:
         if task.mode == "design":
             row.update(_design_row(proto.design(scenario, statistics=task.statistics)))
         elif task.mode == "fixed":
-            fn = fixed_evaluator(proto)
+            fn = fixed_evaluator(proto, task.data)
             if fn is None:
                 raise InputError("--fixed", task.protocol, "a protocol with a fixed-parameter evaluation")
             row.update(_design_row(fn(scenario, task.statistics)))
@@ -319,7 +345,7 @@ def run_sweep(loaded: LoadedScenario, vary: Sequence[str] | Sequence[Axis] = (),
         raise InputError("mode", mode, "one of: " + ", ".join(MODES))
     if statistics is not None and statistics not in proto.statistics_methods:
         raise InputError("--statistics", statistics, "one of: " + ", ".join(proto.statistics_methods))
-    if mode == "fixed" and fixed_evaluator(proto) is None:
+    if mode == "fixed" and fixed_evaluator(proto, loaded.data) is None:
         raise InputError("--fixed", loaded.protocol,
                          "a protocol with a fixed-parameter evaluation (this protocol only offers the design "
                          "optimiser; drop --fixed)")

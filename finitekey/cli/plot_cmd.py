@@ -1,0 +1,65 @@
+"""``finitekey plot SCENARIO.toml --vary ... -o FILE.png``: key rate, smallest block size or epsilon ledger."""
+
+from __future__ import annotations
+
+import argparse
+from types import SimpleNamespace
+
+from ..errors import InputError
+from ..report.figures import KINDS, blocksize_plot, ledger_plot, rate_plot
+from ..report.plots import PLOT_FORMATS, figure_bytes
+from ..report.sweep import _design_row, load_scenario, run_sweep
+from .table_cmd import add_sweep_arguments, command_line, write_output
+
+
+def _args(p: argparse.ArgumentParser) -> None:
+    add_sweep_arguments(p)
+    p.add_argument("--kind", choices=KINDS, default="rate",
+                   help="rate: key rate per pulse against the first varied field, one curve per value of the second "
+                        "(plus asymptotic rate and repeaterless bound when available); blocksize: smallest block "
+                        "against the first varied field; ledger: epsilon ledger of the design at the scenario")
+    p.add_argument("--target", default="positive",
+                   help="block-size target for --kind blocksize: 'positive', 'bits=N' or 'fraction=F'")
+    p.add_argument("-o", "--output", required=True, help="output image: .png, .svg or .pdf (written atomically)")
+
+
+def _format(path: str) -> str:
+    low = path.lower()
+    for f in PLOT_FORMATS:
+        if low.endswith("." + f):
+            return f
+    raise InputError("--output", path, "a file name ending in " + ", ".join("." + f for f in PLOT_FORMATS))
+
+
+def _run(args) -> int:
+    fmt = _format(args.output)
+    loaded = load_scenario(args.scenario)
+    cmd = command_line(args, "plot", [f"--kind={args.kind}", f"--output={args.output}"])
+    if args.kind == "ledger":
+        proto = loaded.protocol_object()
+        scenario = proto.parse_scenario(loaded.data)
+        for v in args.vary or []:  # a ledger plot may take single-valued --vary as overrides
+            from ..report.grid import parse_vary
+            axis = parse_vary(v, list(proto.scenario_fields()))
+            if len(axis.values) != 1:
+                raise InputError("--vary", v, "a single value for --kind ledger (it plots one design)")
+            scenario = proto.with_field(scenario, axis.field, axis.values[0])
+        row = _design_row(proto.design(scenario, statistics=args.statistics))
+        fig = ledger_plot(row["ledger"], loaded.protocol, note=f"finitekey · input sha256 {loaded.sha256[:12]}")
+    else:
+        if not args.vary:
+            raise InputError("--vary", None, "at least one FIELD=VALUES for --kind " + args.kind)
+        if args.kind == "rate":
+            table = run_sweep(loaded, args.vary, mode="design", statistics=args.statistics, jobs=args.jobs,
+                              cluster=args.cluster, progress=args.progress, command=cmd)
+            fig = rate_plot(table, loaded)
+        else:
+            table = run_sweep(loaded, args.vary, mode="blocksize", statistics=args.statistics, target=args.target,
+                              jobs=args.jobs, cluster=args.cluster, progress=args.progress, command=cmd)
+            fig = blocksize_plot(table)
+    write_output(args.output, figure_bytes(fig, fmt))
+    return 0
+
+
+PLOT = SimpleNamespace(NAME="plot", HELP="plot key rate, smallest block size or the epsilon ledger", add_arguments=_args,
+                       run=_run)

@@ -1,0 +1,50 @@
+"""``finitekey report SCENARIO.toml -o report.html [--latex FILE.tex]``: a self-contained specification report."""
+
+from __future__ import annotations
+
+import argparse
+from types import SimpleNamespace
+
+from ..errors import InputError
+from ..report.build import build_report
+from ..report.html import to_html
+from ..report.latex import report_latex
+from ..report.sweep import load_scenario
+from .table_cmd import add_sweep_arguments, command_line, write_output
+
+
+def _args(p: argparse.ArgumentParser) -> None:
+    add_sweep_arguments(p)
+    p.add_argument("-o", "--output", required=True,
+                   help="HTML file to write (self-contained, works offline; written atomically)")
+    p.add_argument("--latex", metavar="FILE.tex", default=None,
+                   help="also write a LaTeX fragment with the formula and the tables (needs amsmath)")
+    p.add_argument("--blocksize", metavar="TARGET", default=None,
+                   help="also tabulate and plot the smallest block along the first varied field "
+                        "('positive', 'bits=N' or 'fraction=F')")
+    p.add_argument("--no-sweep", action="store_true",
+                   help="no sweep table or rate plot (by default, without --vary, a distance or QBER sweep is shown)")
+
+
+def _run(args) -> int:
+    if not args.output.lower().endswith((".html", ".htm")):
+        raise InputError("--output", args.output, "a file name ending in .html")
+    if args.latex is not None and not args.latex.lower().endswith(".tex"):
+        raise InputError("--latex", args.latex, "a file name ending in .tex")
+    loaded = load_scenario(args.scenario)
+    extra = [f"--output={args.output}"] + ([f"--latex={args.latex}"] if args.latex else []) \
+        + ([f"--blocksize={args.blocksize}"] if args.blocksize else []) + (["--no-sweep"] if args.no_sweep else [])
+    vary = [] if args.no_sweep else args.vary
+    report = build_report(loaded, vary=vary, statistics=args.statistics, blocksize_target=args.blocksize,
+                          jobs=args.jobs, cluster=args.cluster, progress=args.progress,
+                          command=command_line(args, "report", extra))
+    html_text = to_html(report)
+    tex = report_latex(report) if args.latex else None
+    write_output(args.output, html_text)
+    if tex is not None:
+        write_output(args.latex, tex)
+    return 0
+
+
+REPORT = SimpleNamespace(NAME="report", HELP="self-contained offline HTML report (and optional LaTeX fragment)",
+                         add_arguments=_args, run=_run)
