@@ -61,24 +61,34 @@ def maximize_box(f: Callable, bounds: Sequence[tuple], grid: Sequence[int], *, p
     best = float(vals[idx])
     if not polish or not np.isfinite(best):
         return x0, best
-    lo = np.array([b[0] for b in bounds])
-    hi = np.array([b[1] for b in bounds])
+    lo = np.array([b[0] for b in bounds], dtype=float)
+    hi = np.array([b[1] for b in bounds], dtype=float)
+    free = np.flatnonzero(hi > lo)
+    if free.size == 0:
+        return x0, best
 
-    def neg(x):
-        xc = np.clip(x, lo, hi)
+    def full(y):
+        x = x0.copy()
+        x[free] = np.clip(y, lo[free], hi[free])
+        return x
+
+    def neg(y):
         with np.errstate(all="ignore"):
-            v = float(f(*xc))
+            v = float(f(*full(y)))
         return -v if math.isfinite(v) else math.inf
 
-    step = np.array([(b[1] - b[0]) / max(m - 1, 1) for b, m in zip(bounds, grid)])
-    simplex = [x0] + [np.clip(x0 + np.eye(len(x0))[i] * step[i] * 0.5, lo, hi) for i in range(len(x0))]
-    res = optimize.minimize(neg, x0, method="Nelder-Mead",
+    step = np.array([(bounds[i][1] - bounds[i][0]) / max(grid[i] - 1, 1) for i in free])
+    y0 = x0[free]
+    simplex = [y0] + [np.clip(y0 + np.eye(free.size)[j] * step[j] * 0.5, lo[free], hi[free]) for j in range(free.size)]
+    for j in range(free.size):  # a vertex stuck on the boundary: step inwards instead
+        if np.array_equal(simplex[j + 1], y0):
+            simplex[j + 1] = np.clip(y0 - np.eye(free.size)[j] * step[j] * 0.5, lo[free], hi[free])
+    res = optimize.minimize(neg, y0, method="Nelder-Mead",
                             options={"initial_simplex": np.array(simplex), "xatol": xatol, "fatol": 1e-9,
                                      "maxiter": maxiter})
-    x = np.clip(res.x, lo, hi)
-    v = -neg(x)
+    v = -neg(res.x)
     if v >= best:
-        return x, v
+        return full(res.x), v
     return x0, best
 
 
