@@ -457,3 +457,17 @@ def test_scenario_fields_and_with_field():
         with_field(sc, "channel.qber", 0.7)
     with pytest.raises(InputError):
         with_field(sc, "link.distance_km", 3)
+
+
+def test_exact_statistics_size_limit_names_block_field():
+    b = block(key_bits=10**16, test_bits=10**9, test_errors=10**7, ec_leak_bits=10**15)
+    with pytest.raises(InputError) as ei:
+        key_length(b, "exact")
+    assert ei.value.field == "key_bits"
+    assert key_length(b, "serfling").secret_key_length > 0
+
+
+def test_batch_equals_single():
+    blocks = [block(test_errors=e) for e in (100, 2000, 2000, 5000, 9000)]
+    batch = bb84.key_length_batch(blocks)
+    assert [r.secret_key_length for r in batch] == [key_length(b).secret_key_length for b in blocks]

@@ -349,7 +349,12 @@ def phase_errors_upper_exact(n: int, k: int, e: int, eps_pe: float, cache: dict 
     key = (n, k, e, eps_pe)
     if cache is not None and key in cache:
         return cache[key]
-    out = int(key_errors_upper_certified(n, k, e, eps_pe))
+    try:
+        out = int(key_errors_upper_certified(n, k, e, eps_pe))
+    except InputError as exc:  # name the block's fields, not the bound's parameters
+        name = {"n": "key_bits", "k": "test_bits", "e": "test_errors"}.get(exc.field, exc.field)
+        raise InputError(name, exc.value, exc.allowed + " (limit of the exact statistics; "
+                                                        "--statistics serfling has none)") from None
     if cache is not None:
         cache[key] = out
     return out
