@@ -264,7 +264,7 @@ def test_reference_full_grid(n, eps):
         _kato_case(n, eps)
 
 
-def test_vacuous_event_gives_zero_tail():
+def test_tail_check_detects_a_too_small_deviation():
     # The tail helper itself must be able to fail the check: a deliberately halved Hoeffding deviation
     # at n = 1000, eps = 1e-10, p = 1/2 gives an exact tail far above eps.
     delta = fb.get("hoeffding").deviation(1e-10, n=1000) / 2
