@@ -227,6 +227,29 @@ def sampling_gamma(eps, lam, n_test, n_key, log):
     return val
 
 
+def sampling_kl_rate_float(lam, n_key, n_test, eps, iterations: int = 12):
+    """Float upper bound on the error rate of ``n_key`` bits given rate ``lam`` on ``n_test`` bits sampled
+    without replacement from the ``n_key + n_test`` (vectorised; used as the design surrogate).
+
+    Chernoff-Hoeffding: the sample rate obeys ``Pr[rate <= lam] <= exp(-n_test D(lam || pi))`` for a
+    population rate ``pi > lam`` also without replacement (Hoeffding 1963, section 6); ``pi_u`` solves
+    ``D(lam || pi) = ln(1/eps)/n_test`` (Newton from the right, where ``D`` is convex and increasing) and the
+    key rate is at most ``((n_key + n_test) pi_u - n_test lam) / n_key``.
+    """
+    lam = np.clip(np.asarray(lam, dtype=float), 0.0, 0.5)
+    k = np.maximum(np.asarray(n_test, dtype=float), 1e-300)
+    n = np.maximum(np.asarray(n_key, dtype=float), 1e-300)
+    c = np.log(1.0 / eps) / k
+    top = 1.0 - 1e-15
+    pi = np.minimum(lam + np.sqrt(c / 2.0), top)   # Pinsker: D >= 2 (pi - lam)^2 >= c here
+    safe = np.maximum(lam, 1e-300)
+    for _ in range(iterations):
+        d = np.where(lam > 0, lam * np.log(safe / pi), 0.0) + (1 - lam) * np.log((1 - lam) / (1 - pi))
+        slope = (pi - lam) / (pi * (1 - pi))
+        pi = np.clip(pi - (d - c) / np.maximum(slope, 1e-300), lam, top)
+    return np.minimum(((n + k) * pi - k * lam) / n, 1.0)
+
+
 def binary_entropy_float(x):
     x = np.clip(np.asarray(x, dtype=float), 1e-300, 0.5)
     return -(x * np.log2(x) + (1 - x) * np.log1p(-x) / LN2)
