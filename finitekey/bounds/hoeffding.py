@@ -27,6 +27,7 @@ HOEFFDING = register(SymbolicBound(
     title="Hoeffding inequality (independent bounded variables)",
     summary="One-sided deviation of the empirical mean of n independent variables in [0, 1] from their mean.",
     bounds="binomial_mean",
+    size_parameters=("n",),
     parameters=[Parameter("n", "n", Domain(1, float("inf"), integer=True), "number of independent variables",
                           (10, 1e10))],
     deviation_parameter=Parameter("delta", r"\delta", Domain(0, float("inf"), lower_open=True),
