@@ -7,7 +7,8 @@ A progress bar is drawn on stderr only when stderr is a terminal.
 Dask (``dask[distributed]``, the optional extra ``cluster``) is imported only
 when a cluster is asked for.  ``cluster="local"`` starts a
 ``distributed.LocalCluster`` bound to 127.0.0.1 with the dashboard switched
-off; any other string is the address of a running scheduler.
+off, and its worker processes are forked (on POSIX) so that they inherit the
+imported package; any other string is the address of a running scheduler.
 
 References
 ----------
@@ -76,6 +77,40 @@ class Progress:
             self.stream.flush()
 
 
+class _Failure:
+    """An InputError raised in a worker, carried back as plain data.
+
+    ``InputError`` takes three constructor arguments but pickles only its
+    message, so it cannot cross a process boundary as is; the runner sends its
+    fields and raises it again in the caller.
+    """
+
+    def __init__(self, exc: InputError):
+        self.field, self.value, self.allowed = exc.field, exc.value, exc.allowed
+
+    def reraise(self):
+        raise InputError(self.field, self.value, self.allowed)
+
+
+class _Guarded:
+    """``func`` wrapped so that an InputError comes back as a :class:`_Failure` (picklable)."""
+
+    def __init__(self, func: Callable):
+        self.func = func
+
+    def __call__(self, x):
+        try:
+            return self.func(x)
+        except InputError as exc:
+            return _Failure(exc)
+
+
+def _unwrap(value):
+    if isinstance(value, _Failure):
+        value.reraise()
+    return value
+
+
 def _mp_context():
     # fork is fastest (workers inherit the imported package); it is only safe while the parent runs one thread.
     if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
@@ -125,10 +160,11 @@ def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: s
             return out
         results = [None] * len(items)
         with ProcessPoolExecutor(max_workers=min(jobs, len(items)), mp_context=_mp_context()) as pool:
-            futures = {pool.submit(func, x): i for i, x in enumerate(items)}
+            guarded = _Guarded(func)
+            futures = {pool.submit(guarded, x): i for i, x in enumerate(items)}
             try:
                 for fut in as_completed(futures):
-                    results[futures[fut]] = fut.result()
+                    results[futures[fut]] = _unwrap(fut.result())
                     bar.step()
             except BaseException:
                 for fut in futures:
@@ -151,8 +187,12 @@ def _run_dask(func, items, jobs, cluster, bar) -> list:
     local = None
     try:
         if cluster == "local":
-            local = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                 dashboard_address=None, silence_logs=40)
+            import dask
+            # fork: workers inherit the imported package (a spawned worker spends seconds importing it again)
+            method = "fork" if "fork" in multiprocessing.get_all_start_methods() else "spawn"
+            with dask.config.set({"distributed.worker.multiprocessing-method": method}):
+                local = LocalCluster(n_workers=jobs, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                     dashboard_address=None, silence_logs=40)
             client = Client(local)
         else:
             try:
@@ -160,11 +200,11 @@ def _run_dask(func, items, jobs, cluster, bar) -> list:
             except (OSError, TimeoutError, ValueError) as exc:
                 raise InputError("--cluster", cluster, f"the address of a reachable Dask scheduler ({exc})") from None
         try:
-            futures = client.map(func, items, pure=False)
+            futures = client.map(_Guarded(func), items, pure=False)
             index = {f.key: i for i, f in enumerate(futures)}
             results = [None] * len(items)
             for fut in dask_completed(futures):
-                results[index[fut.key]] = fut.result()
+                results[index[fut.key]] = _unwrap(fut.result())
                 bar.step()
             return results
         finally:

@@ -1,0 +1,198 @@
+"""Sweeps over the registered protocols: table values equal the protocol API, formats parse, CLI errors.
+
+References used: the protocol API itself (``design``, ``blocksize``, ``with_field``) evaluated point by point in
+this process is the reference for every table cell; ``csv``/``json`` parsers; ``hashlib.sha256`` of the input
+file for the provenance; a serial run for the parallel and Dask runs.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+
+import pytest
+
+from finitekey import protocols
+from finitekey.cli import main
+from finitekey.errors import InputError
+from finitekey.report.sweep import load_scenario, run_sweep
+
+BB84_TOML = """
+[protocol]
+name = "bb84"
+label = "sweep test (fictional)"
+[channel]
+qber = 0.02
+[budget]
+signals = 1e10
+detection_probability = 1e-3
+signal_rate_hz = 1e9
+[security]
+eps_sec = 1e-10
+eps_cor = 1e-15
+"""
+
+DECOY_TOML = """
+[protocol]
+name = "decoy-bb84"
+[link]
+distance_km = 20.0
+fiber_loss_db_per_km = 0.2
+[detector]
+efficiency = 0.2
+dark_count_probability = 1e-7
+misalignment_error = 0.01
+[source]
+repetition_rate_hz = 1e9
+[block]
+pulses = 1e10
+[security]
+eps_sec = 1e-10
+eps_cor = 1e-15
+[reconciliation]
+efficiency = 1.16
+"""
+
+
+@pytest.fixture
+def bb84_file(tmp_path):
+    p = tmp_path / "bb84.toml"
+    p.write_text(BB84_TOML)
+    return p
+
+
+def _api_design(proto, path, assignments, statistics=None):
+    loaded = load_scenario(path)
+    sc = proto.parse_scenario(loaded.data)
+    for k, v in assignments.items():
+        sc = proto.with_field(sc, k, v)
+    return proto.design(sc, statistics=statistics).to_dict()
+
+
+def test_table_values_equal_api_values_bb84(bb84_file):
+    proto = protocols.get("bb84")
+    loaded = load_scenario(bb84_file)
+    assert loaded.sha256 == hashlib.sha256(bb84_file.read_bytes()).hexdigest()
+    t = run_sweep(loaded, ["channel.qber=0.01:0.05:0.02", "budget.signals=1e9,1e11"], jobs=2, progress=False)
+    assert [r["point"] for r in t.rows] == [{"channel.qber": q, "budget.signals": n}
+                                            for q in (0.01, 0.03, 0.05) for n in (10**9, 10**11)]
+    for r in t.rows:
+        want = _api_design(proto, bb84_file, r["point"])
+        assert r["secret_key_length"] == want["secret_key_length"]
+        assert r["secret_key_rate_per_pulse"] == want["secret_key_rate_per_signal"]
+        assert r["secret_key_rate_bps"] == want["secret_key_rate_bps"]
+        assert r["eps_total"] == want["expected"]["eps_total"]
+        assert r["block_fill_time_s"] == want["block_fill_time_s"]
+        assert r["parameters"]["p_x"] == want["parameters"]["p_x"]
+        assert r["ledger"] == want["expected"]["ledger"]
+
+
+def test_table_values_equal_api_values_decoy(tmp_path):
+    p = tmp_path / "decoy.toml"
+    p.write_text(DECOY_TOML)
+    proto = protocols.get("decoy-bb84")
+    t = run_sweep(load_scenario(p), ["link.distance_km=0,40"], jobs=2, progress=False)
+    for r in t.rows:
+        want = _api_design(proto, p, r["point"])
+        assert r["secret_key_length"] == want["secret_key_length"] > 0
+        assert r["parameters"]["intensities"] == want["parameters"]["intensities"]
+    assert t.rows[0]["secret_key_length"] > t.rows[1]["secret_key_length"]
+
+
+def test_blocksize_table_equals_api(bb84_file):
+    proto = protocols.get("bb84")
+    t = run_sweep(load_scenario(bb84_file), ["channel.qber=0.02,0.04"], mode="blocksize", target="bits=1000",
+                  jobs=1, progress=False)
+    for r in t.rows:
+        sc = proto.with_field(proto.parse_scenario(load_scenario(bb84_file).data), "channel.qber",
+                              r["point"]["channel.qber"])
+        want = proto.blocksize(sc, protocols.BlockTarget.parse("bits=1000"))
+        assert r["block_size"] == want.size and r["block_size_kind"] == want.size_kind
+        assert r["secret_key_length"] >= 1000
+    assert t.rows[0]["block_size"] < t.rows[1]["block_size"]  # a noisier channel needs a bigger block
+
+
+def test_fixed_keeps_scenario_parameters(tmp_path):
+    p = tmp_path / "fixed.toml"
+    p.write_text(BB84_TOML + "[design]\np_x = 0.9\nsmoothing_share = 0.5\n")
+    proto = protocols.get("bb84")
+    t = run_sweep(load_scenario(p), ["channel.qber=0.02"], mode="fixed", jobs=1, progress=False)
+    r = t.rows[0]
+    assert r["parameters"]["p_x"] == 0.9 and r["parameters"]["epsilon_split.smoothing"] == 0.5
+    want = _api_design(proto, p, {"channel.qber": 0.02, "design.optimise_split": False})
+    assert r["secret_key_length"] == want["secret_key_length"]
+    opt = run_sweep(load_scenario(p.parent / "fixed.toml"), ["design.p_x=0.99"], jobs=1, progress=False)
+    assert opt.rows[0]["parameters"]["p_x"] == 0.99
+
+
+def test_fixed_without_free_parameters_is_an_input_error(bb84_file):
+    with pytest.raises(InputError) as info:
+        run_sweep(load_scenario(bb84_file), ["channel.qber=0.02"], mode="fixed", jobs=1)
+    assert "design.p_x" in str(info.value)
+
+
+def test_cli_formats_parse_and_agree(bb84_file, tmp_path, capsys):
+    base = [str(bb84_file), "--vary", "channel.qber=0.01:0.03:0.01", "--jobs", "1"]
+    out = {}
+    for fmt in ("csv", "json", "md", "tex"):
+        dest = tmp_path / f"t.{fmt}"
+        assert main(["table", *base, "-o", str(dest)]) == 0
+        out[fmt] = dest.read_text()
+    rows = list(csv.DictReader(io.StringIO("\n".join(ln for ln in out["csv"].splitlines() if not ln.startswith("#")))))
+    doc = json.loads(out["json"])
+    assert len(rows) == len(doc["rows"]) == 3
+    for c, j in zip(rows, doc["rows"]):
+        assert int(c["secret_key_length"]) == j["secret_key_length"]
+        assert float(c["secret_key_rate_per_pulse"]) == j["secret_key_rate_per_pulse"]
+        assert j["design"]["expected"]["ledger"] == j["ledger"] and len(j["ledger"]) >= 3
+    sha = hashlib.sha256(bb84_file.read_bytes()).hexdigest()
+    for fmt, text in out.items():
+        assert sha in text and "finitekey table" in text, fmt
+    assert doc["provenance"]["version"] and "--vary=channel.qber=0.01:0.03:0.01" in doc["provenance"]["command"]
+    assert out["md"].count("\n|") >= 4 and r"\begin{tabular}" in out["tex"]
+    # stdout when no -o
+    assert main(["table", *base, "--format", "csv"]) == 0
+    def body(text):
+        return [ln for ln in text.splitlines() if not ln.startswith("# command")]
+    assert body(capsys.readouterr().out) == body(out["csv"])
+
+
+def test_output_deterministic_across_jobs(bb84_file, tmp_path):
+    texts = []
+    for jobs in ("1", "2"):
+        dest = tmp_path / f"j{jobs}.csv"
+        assert main(["table", str(bb84_file), "--vary", "channel.qber=0.01:0.04:0.01", "--jobs", jobs,
+                     "--format", "csv", "-o", str(dest)]) == 0
+        texts.append([ln for ln in dest.read_text().splitlines() if not ln.startswith("# command")])
+    assert texts[0] == texts[1]
+
+
+@pytest.mark.parametrize("vary,needle", [
+    ("chanel.qber=0.01", "channel.qber"),            # unknown field: the valid fields are listed
+    ("channel.qber", "FIELD=VALUES"),                # no '='
+    ("channel.qber=0:0.1", "start:stop:step"),       # two-part range
+    ("channel.qber=0.1:0:0.01", "step points"),      # wrong direction
+    ("channel.qber=0.7", "channel.qber"),            # value outside the field's range
+])
+def test_bad_vary_exits_2_without_traceback(bb84_file, capsys, vary, needle):
+    assert main(["table", str(bb84_file), "--vary", vary, "--jobs", "1"]) == 2
+    err = capsys.readouterr().err
+    assert needle in err and "Traceback" not in err and err.count("\n") == 1
+
+
+def test_unknown_field_message_lists_every_field(bb84_file, capsys):
+    assert main(["table", str(bb84_file), "--vary", "nope=1"]) == 2
+    err = capsys.readouterr().err
+    for f in protocols.get("bb84").scenario_fields():
+        assert f in err
+
+
+def test_dask_local_cluster_equals_local_run(bb84_file):
+    pytest.importorskip("distributed", reason="dask[distributed] is not installed (optional extra 'cluster')")
+    loaded = load_scenario(bb84_file)
+    vary = ["channel.qber=0.01,0.03", "budget.signals=1e9,1e10"]
+    local = run_sweep(loaded, vary, jobs=1, progress=False)
+    dask = run_sweep(loaded, vary, jobs=2, cluster="local", progress=False)
+    assert dask.rows == local.rows
