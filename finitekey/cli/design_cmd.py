@@ -13,6 +13,7 @@ from types import SimpleNamespace
 from .. import protocols
 from ..errors import InputError
 from ..files import read_toml
+from ..optimize.dispatch import scenario_from_dict
 from .keylength_cmd import render_ledger
 from .render import caution_block, fmt, table, to_json
 
@@ -24,13 +25,7 @@ def load_scenario(path):
     if path is None:
         proto = protocols.get(protocols.DEFAULT_PROTOCOL)
         return proto, proto.default_scenario()
-    data = read_toml(path)
-    section = data.get("protocol", {})
-    if not isinstance(section, dict):
-        raise InputError("protocol", section, "a TOML table [protocol] with name = \"...\"")
-    name = section.get("name", protocols.DEFAULT_PROTOCOL)
-    proto = protocols.get(name)
-    return proto, proto.parse_scenario(data)
+    return scenario_from_dict(read_toml(path), default_protocol=protocols.DEFAULT_PROTOCOL)
 
 
 def _args(p: argparse.ArgumentParser) -> None:

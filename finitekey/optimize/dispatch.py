@@ -12,8 +12,10 @@ def scenario_from_dict(data, default_protocol: str | None = None):
     """Return ``(protocol, scenario)`` for a scenario mapping, dispatching on ``[protocol] name``."""
     if not isinstance(data, dict):
         raise InputError("scenario", data, "a TOML table with a [protocol] section")
-    section = data.get("protocol")
-    name = section.get("name") if isinstance(section, dict) else None
+    section = data.get("protocol", {})
+    if not isinstance(section, dict):
+        raise InputError("protocol", section, "a TOML table [protocol] with name = \"...\"")
+    name = section.get("name")
     if name is None:
         if default_protocol is None:
             raise InputError("protocol.name", None, "one of: " + ", ".join(protocols.names()))

@@ -431,7 +431,7 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
     terms = {"min_entropy": hmin, "ec_leakage": float(leak), "verification_tag": float(tag),
              "hash_penalty": float(comp["hash"].numpy(eps_pa))}
     if ball is not None:
-        terms["formula_lower_bound"] = float(ball.lower())
+        terms["key_length_lower_bound"] = float(ball.lower())
     if not usable:
         estimates["note_phase_error_at_least_half"] = 1.0
     return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, ASSUMPTIONS, terms, estimates,
