@@ -471,3 +471,31 @@ def test_batch_equals_single():
     blocks = [block(test_errors=e) for e in (100, 2000, 2000, 5000, 9000)]
     batch = bb84.key_length_batch(blocks)
     assert [r.secret_key_length for r in batch] == [key_length(b).secret_key_length for b in blocks]
+
+
+def test_dispatch_and_signal_budget():
+    from finitekey.optimize import dispatch
+    data = {"protocol": {"name": "bb84"}, "channel": {"qber": 0.02},
+            "budget": {"signals": 10**9, "detection_probability": 1e-3, "signal_rate_hz": 1e8},
+            "security": {"eps_sec": EPS_SEC, "eps_cor": EPS_COR}}
+    d = dispatch.design(data)
+    assert d.expected_counts["detections"] == pytest.approx(1e6)
+    assert d.secret_key_rate_per_signal == pytest.approx(d.expected.secret_key_length / 1e9)
+    assert d.block_fill_time_s == pytest.approx(10.0)
+    res = dispatch.blocksize(data, "positive")
+    assert res.size_kind == "signals" and res.design.expected.secret_key_length >= 1
+    with pytest.raises(InputError):
+        dispatch.design({"protocol": {"name": "b92"}})
+
+
+@pytest.mark.slow
+def test_phase_error_bound_monte_carlo_large(make_rng):
+    # Larger seeded Monte Carlo of the exact hypergeometric bound (Neyman 1937 construction), eps = 0.01.
+    from finitekey.bounds.hypergeometric_exact import key_errors_upper
+    rng = make_rng(7)
+    n, k, eps = 5000, 1000, 0.01
+    for T in (60, 300, 1500):
+        e = rng.hypergeometric(T, n + k - T, k, size=40000)
+        bounds = {int(v): key_errors_upper(n, k, int(v), eps) for v in np.unique(e)}
+        fails = sum((T - int(v)) > bounds[int(v)] for v in e)
+        assert fails <= eps * e.size + 4 * math.sqrt(eps * e.size)
