@@ -117,7 +117,7 @@ def count_events(n_intensities: int, analysis: str) -> int:
         return 12   # key: n1+, n2-, n2+, n3-, n3+; test: the same 5; test errors: m2+, m3-
     if analysis == "two-intensity":
         return 10   # key: n1+, n2-, m2+ and vacuum sampling; test: n1+, n2-, m2+, vacuum sampling, m1+, m2-
-    return 4 * n_intensities  # LP: both sides of the detections of each intensity in each basis ... see _decoy_lp
+    return 6 * n_intensities  # LP: both sides for every intensity: key detections, test detections, test errors
 
 
 def term_specs(n_count: int) -> tuple:
@@ -281,7 +281,10 @@ def _check_split(split) -> dict:
 # ---------------------------------------------------------------------------------------------------------
 # key length
 # ---------------------------------------------------------------------------------------------------------
-def analysis_kind(mu) -> str:
+def analysis_kind(mu, analysis: str | None = None) -> str:
+    """Which analysis a block uses: the closed forms where they apply, else the linear programme."""
+    if analysis == "linear-programme":
+        return analysis
     if len(mu) == 2:
         return "two-intensity"
     if three_intensity_condition(mu):
@@ -291,7 +294,7 @@ def analysis_kind(mu) -> str:
 
 def block_ledger(block: DecoyBlock, statistics: str, analysis: str) -> Ledger:
     n_count = count_events(len(block.intensities), analysis)
-    if statistics == "hoeffding" and block.epsilon_split is None:
+    if statistics == "hoeffding" and block.epsilon_split is None and analysis == "three-intensity":
         return reference_ledger(block.eps_sec, block.eps_cor, n_count)
     return allocate(block.eps_sec, block.eps_cor, term_specs(n_count), block.epsilon_split)
 
@@ -375,7 +378,8 @@ def _phase_error(method: str, est: dict, eps_p: float, prec: int):
         "single_photon_test_errors_upper": float(e), "single_photon_key_phase_errors_upper": float(t)}
 
 
-def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PREC) -> KeyLengthResult:
+def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PREC,
+               analysis: str | None = None) -> KeyLengthResult:
     """Certified secret key length of an observed decoy-state block.
 
     Parameters
@@ -385,6 +389,8 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
         Default ``"exact"``.
     prec : int
         Bits of ball arithmetic.
+    analysis : {None, "linear-programme"}
+        Force the linear programme (otherwise the closed form is used where it applies).
 
     Returns
     -------
@@ -398,7 +404,7 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     .. [2] D. Rusca et al., Appl. Phys. Lett. 112, 171104 (2018).
     """
     method = _check_statistics(statistics)
-    analysis = analysis_kind(block.intensities)
+    analysis = analysis_kind(block.intensities, analysis)
     ledger = block_ledger(block, method, analysis)
     eps_c = ledger.epsilon("count_estimation")
     eps_p = ledger.epsilon("phase_error_sampling")
