@@ -326,3 +326,16 @@ def test_bad_input_names_field(call, field):
     with pytest.raises(InputError) as info:
         call()
     assert info.value.field == field
+
+
+@pytest.mark.slow
+def test_binomial_many_terms_at_1e12_vs_mpmath():
+    # ~4e5 terms: the float path corrects the shared rounding of (1-p)/p, which otherwise grows
+    # linearly along the walk (was 1.4e-12 relative here); reference: 60-digit mpmath sum.
+    n, x = 10**12, 5 * 10**9
+    p = binomial_upper_limit(x, n, 0.01)
+    ref = mp_binom_cdf(x, n, p)
+    assert _rel(binomial_cdf(x, n, p), ref) < 2e-13
+    enc = binomial_cdf_certified(x, n, p)
+    assert enc.lo <= ref <= enc.hi
+    assert float(ref) == pytest.approx(0.01, rel=1e-12)   # the limit solves its defining equation

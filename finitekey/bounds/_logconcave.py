@@ -48,6 +48,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 from flint import arb, ctx
@@ -128,6 +129,19 @@ class Binomial:
         p = self._parb()
         return arb(j) * (1 - p) / (arb(self.n - j + 1) * p)
 
+    def ratio_bias(self, step: int) -> float:
+        """Relative error of the shared float constant (1-p)/p (step < 0) or p/(1-p) (step > 0).
+
+        Every float ratio carries it, so the i-th partial product carries it i times; the float
+        path corrects the sum to first order (the certified path counts it as rounding instead).
+        """
+        p = Fraction(self.p)
+        if step < 0:
+            exact, flt = (1 - p) / p, Fraction((1.0 - self.p) / self.p)
+        else:
+            exact, flt = p / (1 - p), Fraction(self.p / (1.0 - self.p))
+        return float((exact - flt) / flt)
+
     def up_ratio_arb(self, j: int) -> arb:
         p = self._parb()
         return arb(self.n - j) * p / (arb(j + 1) * (1 - p))
@@ -171,6 +185,9 @@ class Hypergeometric:
         c = float(self.N - self.K - self.k + 1)
         return ((self.K - js) * (self.k - js)) / ((js + 1.0) * (js + c))
 
+    def ratio_bias(self, step: int) -> float:
+        return 0.0  # no shared rounded constant: the ratios are formed from exact integers
+
     def down_ratio_arb(self, j: int) -> arb:
         return arb(j * (self.N - self.K - self.k + j)) / arb((self.K - j + 1) * (self.k - j + 1))
 
@@ -182,6 +199,7 @@ class Hypergeometric:
 @dataclass(frozen=True)
 class _Walk:
     total: float       # float sum of the included P_i (P_0 = 1)
+    moment: float      # float sum of i * P_i over the included terms
     terms: int         # number of included terms
     chunks: int
     last: float        # last included P_i
@@ -192,7 +210,7 @@ def _walk(fam, start: int, step: int) -> _Walk:
     """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support."""
     ratio = fam.down_ratio if step < 0 else fam.up_ratio
     avail = (start - fam.lo) if step < 0 else (fam.hi - start)
-    total, last, j, chunks, terms, size = 1.0, 1.0, start, 0, 1, _FIRST_CHUNK
+    total, moment, last, j, chunks, terms, size = 1.0, 0.0, 1.0, start, 0, 1, _FIRST_CHUNK
     while avail > 0:
         m = min(size, avail)
         js = np.arange(m, dtype=np.float64)
@@ -209,15 +227,17 @@ def _walk(fam, start: int, step: int) -> _Walk:
             idx = int(np.argmax(small))
             if idx:
                 total += float(prods[:idx].sum())
+                moment += float(np.dot(prods[:idx], np.arange(terms, terms + idx, dtype=np.float64)))
                 last = float(prods[idx - 1])
-            return _Walk(total, terms + idx, chunks, last, j + step * idx)
+            return _Walk(total, moment, terms + idx, chunks, last, j + step * idx)
         total += float(prods.sum())
+        moment += float(np.dot(prods, np.arange(terms, terms + m, dtype=np.float64)))
         terms += m
         last = float(prods[-1])
         j += step * m
         avail -= m
         size = min(size * 4, _MAX_CHUNK)
-    return _Walk(total, terms, chunks, last, None)
+    return _Walk(total, moment, terms, chunks, last, None)
 
 
 def _walk_log(fam, start: int, step: int) -> float:
@@ -228,7 +248,8 @@ def _walk_log(fam, start: int, step: int) -> float:
         with ctx.workprec(_WORK_PREC):
             return float(_walk_arb(fam, start, step, _WORK_PREC).log().mid())
     w = _walk(fam, start, step)
-    return log_start + math.log(w.total)
+    # first-order correction for a rounded constant shared by all ratios: P_i is off by (1 + bias)^i
+    return log_start + math.log(w.total + fam.ratio_bias(step) * w.moment)
 
 
 def _walk_ball(fam, start: int, step: int, prec: int) -> arb:

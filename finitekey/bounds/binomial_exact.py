@@ -94,15 +94,21 @@ def binomial_upper_limit(x, n, eps):
     ----------
     .. [1] C. J. Clopper and E. S. Pearson, Biometrika 26 (1934) 404-413.
     """
+    p0, step = _upper_limit_parts(x, n, eps)
+    out = p0 + step
+    return out if out.ndim else float(out)
+
+
+def _upper_limit_parts(x, n, eps):
+    """scipy's limit ``p0`` and the Newton correction ``step`` (kept apart: step may be below an ulp of p0)."""
     x, n = _check_pair(x, n)
     eps = EPS.check(eps)
     xa, na = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
     full = xa >= na
     with np.errstate(all="ignore"):
-        out = special.betainccinv(xa + 1.0, np.where(full, 1.0, na - xa), eps)
-    out = np.where(full, 1.0, out)
-    out = _refine(out, xa, na, eps, upper=True)
-    return out if out.ndim else float(out)
+        p0 = special.betainccinv(xa + 1.0, np.where(full, 1.0, na - xa), eps)
+    p0 = np.where(full, 1.0, p0)
+    return p0, _refine(p0, xa, na, eps, upper=True)
 
 
 def binomial_lower_limit(x, n, eps):
@@ -123,7 +129,7 @@ def binomial_lower_limit(x, n, eps):
     with np.errstate(all="ignore"):
         out = special.betaincinv(np.where(zero, 1.0, xa), na - xa + 1.0, eps)
     out = np.where(zero, 0.0, out)
-    out = _refine(out, xa, na, eps, upper=False)
+    out = out + _refine(out, xa, na, eps, upper=False)
     return out if out.ndim else float(out)
 
 
@@ -132,15 +138,15 @@ _REFINE_FROM = 10**6
 
 
 def _refine(p, xa, na, eps, upper):
-    """Polish scipy's limits at large n with one Newton step on the exact tail (see `_newton_step`)."""
-    p = np.array(p, dtype=float)
-    if not np.any(na >= _REFINE_FROM):
-        return p
+    """Newton corrections (an array like ``p``, zero below ``_REFINE_FROM`` trials) to scipy's limits."""
+    p = np.asarray(p, dtype=float)
     bp, bx, bn, be = np.broadcast_arrays(p, xa, na, np.asarray(eps, dtype=float))
-    out = bp.copy()
+    out = np.zeros(bp.shape)
+    if not np.any(bn >= _REFINE_FROM):
+        return out
     for idx in np.ndindex(out.shape):
         if bn[idx] >= _REFINE_FROM:
-            out[idx] = bp[idx] + _newton_step(int(bx[idx]), int(bn[idx]), float(be[idx]), float(bp[idx]), upper)
+            out[idx] = _newton_step(int(bx[idx]), int(bn[idx]), float(be[idx]), float(bp[idx]), upper)
     return out
 
 
@@ -301,11 +307,11 @@ class BinomialExact(Bound):
     # float
     def _deviation(self, eps, params):
         x, n = params["x"], params["n"]
-        p = binomial_upper_limit(x, n, eps)
-        bp, bx, bn = np.broadcast_arrays(np.asarray(p, dtype=float), np.asarray(x), np.asarray(n))
+        p0, step = _upper_limit_parts(x, n, eps)
+        bp, bs, bx, bn = np.broadcast_arrays(p0, step, np.asarray(x), np.asarray(n))
         out = np.empty(bp.shape)
         for idx in np.ndindex(bp.shape):
-            out[idx] = _minus_ratio(float(bp[idx]), int(bx[idx]), int(bn[idx]))
+            out[idx] = _minus_ratio(float(bp[idx]), int(bx[idx]), int(bn[idx])) + float(bs[idx])
         return out if out.ndim else float(out)
 
     def _failure_probability(self, deviation, params):
