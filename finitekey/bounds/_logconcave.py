@@ -206,8 +206,11 @@ class _Walk:
     next_ratio_at: int | None  # point whose ratio produces the first excluded term; None if support exhausted
 
 
-def _walk(fam, start: int, step: int) -> _Walk:
-    """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support."""
+def _walk(fam, start: int, step: int, with_moment: bool = False) -> _Walk:
+    """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support.
+
+    ``with_moment`` also accumulates ``sum i P_i`` (for the float path's bias correction).
+    """
     ratio = fam.down_ratio if step < 0 else fam.up_ratio
     avail = (start - fam.lo) if step < 0 else (fam.hi - start)
     total, moment, last, j, chunks, terms, size = 1.0, 0.0, 1.0, start, 0, 1, _FIRST_CHUNK
@@ -227,17 +230,24 @@ def _walk(fam, start: int, step: int) -> _Walk:
             idx = int(np.argmax(small))
             if idx:
                 total += float(prods[:idx].sum())
-                moment += float(np.dot(prods[:idx], np.arange(terms, terms + idx, dtype=np.float64)))
+                if with_moment:
+                    moment += _moment(prods[:idx], terms)
                 last = float(prods[idx - 1])
             return _Walk(total, moment, terms + idx, chunks, last, j + step * idx)
         total += float(prods.sum())
-        moment += float(np.dot(prods, np.arange(terms, terms + m, dtype=np.float64)))
+        if with_moment:
+            moment += _moment(prods, terms)
         terms += m
         last = float(prods[-1])
         j += step * m
         avail -= m
         size = min(size * 4, _MAX_CHUNK)
     return _Walk(total, moment, terms, chunks, last, None)
+
+
+def _moment(prods: np.ndarray, first: int) -> float:
+    """sum_t (first + t) prods[t], without BLAS (whose threads contend on a loaded machine)."""
+    return float(first * prods.sum() + (prods * np.arange(prods.size, dtype=np.float64)).sum())
 
 
 def _walk_log(fam, start: int, step: int) -> float:
@@ -247,9 +257,10 @@ def _walk_log(fam, start: int, step: int) -> float:
     if not fam.float_ok:
         with ctx.workprec(_WORK_PREC):
             return float(_walk_arb(fam, start, step, _WORK_PREC).log().mid())
-    w = _walk(fam, start, step)
+    bias = fam.ratio_bias(step)
+    w = _walk(fam, start, step, with_moment=bias != 0.0)
     # first-order correction for a rounded constant shared by all ratios: P_i is off by (1 + bias)^i
-    return log_start + math.log(w.total + fam.ratio_bias(step) * w.moment)
+    return log_start + math.log(w.total + bias * w.moment)
 
 
 def _walk_ball(fam, start: int, step: int, prec: int) -> arb:
