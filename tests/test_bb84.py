@@ -149,7 +149,8 @@ def test_exact_key_length_never_exceeds_formula(n, k, e, leak):
     assert res.secret_key_length == max(0, int(mpmath.floor(val)))
 
 
-@pytest.mark.parametrize("n,k,e,leak", POINTS + [(10**6, 10**5, 0, 0), (2000, 200, 30, 500), (10**7, 10**4, 100, 10**6)])
+@pytest.mark.parametrize("n,k,e,leak", POINTS + [(10**6, 10**5, 0, 0), (2000, 200, 30, 500),
+                                                   (10**7, 10**4, 100, 10**6)])
 def test_exact_at_least_serfling(n, k, e, leak):
     b = block(key_bits=n, test_bits=k, test_errors=e, ec_leak_bits=leak)
     ex, se = key_length(b, "exact"), key_length(b, "serfling")
@@ -404,7 +405,8 @@ def test_bad_blocks(change, field):
     assert ei.value.field == field
 
 
-@pytest.mark.parametrize("extra,field", [({"key_qber": 0.5, "ec_efficiency": 1.1}, "key_qber"), ({"key_qber": 0.02}, "ec_efficiency"),
+@pytest.mark.parametrize("extra,field", [({"key_qber": 0.5, "ec_efficiency": 1.1}, "key_qber"),
+                                         ({"key_qber": 0.02}, "ec_efficiency"),
                                          ({"ec_efficiency": 0.9, "key_qber": 0.02}, "ec_efficiency")])
 def test_bad_efficiency_form(extra, field):
     d = {k: v for k, v in GOOD.items() if k != "ec_leak_bits"}

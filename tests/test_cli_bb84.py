@@ -1,7 +1,6 @@
 """CLI: finitekey keylength / design / blocksize for BB84 (via finitekey.cli.main and one subprocess run)."""
 
 import json
-import math
 import subprocess
 import sys
 from pathlib import Path

@@ -7,7 +7,6 @@ Without a file the built-in scenario of the default protocol is used (a fictiona
 from __future__ import annotations
 
 import argparse
-import json
 from types import SimpleNamespace
 
 from .. import protocols
@@ -43,7 +42,8 @@ def _value(v):
 
 def render_design(d) -> str:
     rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
-    rows += [["expected: " + k, fmt(v), "count" if k != "key_qber" else "fraction"] for k, v in d.expected_counts.items()]
+    rows += [["expected: " + k, fmt(v), "count" if k != "key_qber" else "fraction"]
+             for k, v in d.expected_counts.items()]
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
     rows.append(["secret key rate", fmt(d.secret_key_rate_per_signal), "bits per signal"])
     if getattr(d, "secret_key_rate_per_detection", None) is not None:

@@ -50,7 +50,7 @@ from __future__ import annotations
 import enum
 import functools
 import math
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from fractions import Fraction
 
 import numpy as np
@@ -61,7 +61,7 @@ from .. import bounds as _bounds
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
 from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..compile import compile_expression
-from ..domains import COUNT, POSITIVE_COUNT, PROBABILITY, Domain
+from ..domains import POSITIVE_COUNT, PROBABILITY, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
 from ..errors import ComputationError, InputError
 from ..optimize._common import golden_max, maximize_box, smallest_passing
@@ -395,7 +395,8 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
     """
     stats = Statistics.parse(statistics) if statistics is not None else (block.statistics or Statistics.EXACT)
     cache = _cache if _cache is not None else {}
-    lkey = (block.eps_sec, block.eps_cor, None if block.epsilon_split is None else tuple(sorted(block.epsilon_split.items())))
+    split_key = None if block.epsilon_split is None else tuple(sorted(block.epsilon_split.items()))
+    lkey = (block.eps_sec, block.eps_cor, split_key)
     ledger = cache.get(lkey)
     if ledger is None:
         ledger = cache[lkey] = block_ledger(block.eps_sec, block.eps_cor, block.epsilon_split)
