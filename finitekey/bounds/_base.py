@@ -26,6 +26,7 @@ otherwise.
 from __future__ import annotations
 
 import abc
+import functools
 import math
 from dataclasses import dataclass
 from typing import Mapping
@@ -294,11 +295,25 @@ class SymbolicBound(Bound):
         # Re-express with the canonical (positive) symbols.
         subs = {s: self.symbols[s.name] for s in failure_probability.free_symbols if s.name in self.symbols}
         self.failure_probability_expr = failure_probability.xreplace(subs)
+        # Compilation and the symbolic inverse are derived on first use (cached per instance):
+        # solving can take seconds, and a command line call needs only the bounds it uses.
+
+    @functools.cached_property
+    def _tail(self) -> CompiledExpression:
         args = [self.symbols[p.name] for p in self.parameters]
-        self._tail = compile_expression(self.failure_probability_expr, (*args, self.symbols[deviation_parameter.name]))
-        self.deviation_expr = self._solve_deviation()
-        self._dev = (compile_expression(self.deviation_expr, (*args, self.symbols["eps"]))
-                     if self.deviation_expr is not None else None)
+        return compile_expression(self.failure_probability_expr, (*args, self.symbols[self.deviation_parameter.name]))
+
+    @functools.cached_property
+    def deviation_expr(self):
+        """Closed-form deviation as a sympy expression of the parameters and ``epsilon``, or None."""
+        return self._solve_deviation()
+
+    @functools.cached_property
+    def _dev(self):
+        if self.deviation_expr is None:
+            return None
+        args = [self.symbols[p.name] for p in self.parameters]
+        return compile_expression(self.deviation_expr, (*args, self.symbols["eps"]))
 
     # ---- construction helpers ---------------------------------------------------
     def _typical_point(self) -> dict:
