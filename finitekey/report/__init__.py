@@ -13,5 +13,16 @@ from .grid import Axis, GridPoint, expand_grid, parse_vary
 from .runner import default_jobs, run_map
 from .sweep import LoadedScenario, SweepTable, evaluate_point, load_scenario, run_sweep
 
-__all__ = ["Axis", "GridPoint", "expand_grid", "parse_vary", "default_jobs", "run_map", "LoadedScenario",
-           "SweepTable", "evaluate_point", "load_scenario", "run_sweep"]
+__all__ = [
+           "Axis",
+           "GridPoint",
+           "LoadedScenario",
+           "SweepTable",
+           "default_jobs",
+           "evaluate_point",
+           "expand_grid",
+           "load_scenario",
+           "parse_vary",
+           "run_map",
+           "run_sweep",
+]

@@ -14,13 +14,12 @@ References
 
 from __future__ import annotations
 
-from .. import protocols
 from ..errors import FiniteKeyError, InputError
 from .formats import short_number
 from .plots import Curve, axis_label, blocksize_figure, ledger_figure, rate_figure, repeaterless_bound, use_log
 from .sweep import SweepTable, _scenario_at
 
-__all__ = ["series", "rate_quantity", "reference_curves", "rate_plot", "blocksize_plot", "ledger_plot", "KINDS"]
+__all__ = ["KINDS", "blocksize_plot", "ledger_plot", "rate_plot", "rate_quantity", "reference_curves", "series"]
 
 KINDS = ("rate", "blocksize", "ledger")
 
@@ -144,8 +143,8 @@ def reference_curves(table: SweepTable, loaded, unit: str = "bit/pulse") -> list
         out.append(Curve("asymptotic rate (infinite block, same devices)", tuple(asym_x), tuple(asym_y),
                          kind="asymptotic"))
     if bound_x:
-        out.append(Curve("repeaterless bound −log₂(1−η), η = fibre transmittance", tuple(bound_x), tuple(bound_y),
-                         kind="bound"))
+        out.append(Curve("repeaterless bound −log₂(1−η), η = link transmittance (detector excluded)",
+                         tuple(bound_x), tuple(bound_y), kind="bound"))
     return out
 
 

@@ -23,13 +23,24 @@ from __future__ import annotations
 
 import csv
 import io
+import json
 import math
 
 from ..cautions import CAUTION
-import json
 
-__all__ = ["FORMATS", "render_table", "to_csv", "to_json", "to_markdown", "to_latex", "latex_escape", "json_text",
-           "short_number", "latex_number", "format_for_path"]
+__all__ = [
+    "FORMATS",
+    "format_for_path",
+    "json_text",
+    "latex_escape",
+    "latex_number",
+    "render_table",
+    "short_number",
+    "to_csv",
+    "to_json",
+    "to_latex",
+    "to_markdown",
+]
 
 FORMATS = ("csv", "json", "md", "tex")
 

@@ -2,7 +2,8 @@
 
 Mathtext covers most of what ``sympy.latex`` prints.  For the few commands it
 lacks, :func:`mathtext_source` rewrites them to equivalents (``\\operatorname``
-and ``\\text`` to ``\\mathrm``, fixed-size delimiters ``\\big``/``\\Big`` dropped, ``\\left``/``\\right`` dropped when mathtext
+and ``\\text`` to ``\\mathrm``, fixed-size delimiters ``\\big``/``\\Big`` dropped,
+``\\left``/``\\right`` dropped when mathtext
 refuses them); if the formula still cannot be parsed, :func:`render_formula`
 says so and the report shows the LaTeX source instead of a picture.
 
@@ -19,7 +20,7 @@ from dataclasses import dataclass
 
 from matplotlib import mathtext, rc_context
 
-__all__ = ["RenderedFormula", "render_formula", "mathtext_source"]
+__all__ = ["RenderedFormula", "mathtext_source", "render_formula"]
 
 
 @dataclass(frozen=True)
@@ -67,7 +68,7 @@ def _try(source: str, fmt: str, fontsize: float, dpi: int):
     buf = io.BytesIO()
     with rc_context({"mathtext.fontset": "dejavuserif", "svg.fonttype": "path", "svg.hashsalt": "finitekey"}):
         mathtext.math_to_image(f"${source}$", buf, prop=FontProperties(size=fontsize), dpi=dpi, format=fmt,
-                               color="#1d2433")
+                               color="#3a2c7a")
     data = buf.getvalue()
     return data.decode("utf-8") if fmt == "svg" else data
 

@@ -17,12 +17,12 @@ from __future__ import annotations
 
 import decimal
 import itertools
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 from ..errors import InputError
 
-__all__ = ["Axis", "GridPoint", "parse_value", "parse_vary", "expand_grid", "VARY_FORMS", "MAX_POINTS"]
+__all__ = ["MAX_POINTS", "VARY_FORMS", "Axis", "GridPoint", "expand_grid", "parse_value", "parse_vary"]
 
 #: Largest number of points of one axis and of a whole grid (a typo such as 0:1e9:1 must not hang the tool).
 MAX_POINTS = 100_000

@@ -24,7 +24,7 @@ import re
 
 from .formats import short_number
 
-__all__ = ["to_html", "CSS"]
+__all__ = ["CSS", "to_html"]
 
 CSS = """
 :root { --ink:#1d2433; --muted:#5d6472; --line:#d8d2c4; --paper:#fdfcf8; --accent:#1f7a74; --warn:#9a3b1c; }
@@ -42,7 +42,8 @@ h3 { font-size:0.95rem; margin:1rem 0 0.3rem; color:var(--muted); text-transform
 table { border-collapse:collapse; font-size:0.85rem; margin:0.4rem 0 0.8rem; }
 th, td { padding:0.22rem 0.6rem; border-bottom:1px solid var(--line); text-align:left; vertical-align:top; }
 th { background:#efeadd; font-weight:600; }
-td.num { text-align:right; white-space:nowrap; font-variant-numeric: tabular-nums; font-family:"DejaVu Sans Mono", monospace; }
+td.num { text-align:right; white-space:nowrap; font-variant-numeric: tabular-nums;
+         font-family:"DejaVu Sans Mono", monospace; }
 .scroll { overflow-x:auto; }
 .grid { display:flex; flex-wrap:wrap; gap:0 1.6rem; align-items:flex-start; }
 .cards { display:flex; flex-wrap:wrap; gap:0.8rem; }
@@ -96,7 +97,7 @@ def _kv_rows(d: dict, prefix: str = "") -> list:
 def _svg_inline(svg: str) -> str:
     start = svg.find("<svg")
     svg = svg[start:] if start >= 0 else svg
-    svg = re.sub(r"<metadata>.*?</metadata>", "", svg, flags=re.S)
+    svg = re.sub(r"<metadata>.*?</metadata>", "", svg, flags=re.DOTALL)
     return svg.replace("<svg ", '<svg role="img" aria-label="key-length formula" ', 1)
 
 
@@ -138,7 +139,8 @@ def to_html(report) -> str:
     # summary
     cards = [("secret key length", f"{int(row['secret_key_length']):,} bit".replace(",", " ")),
              ("key rate per pulse", short_number(row["secret_key_rate_per_pulse"])),
-             ("key rate per second", short_number(row["secret_key_rate_bps"]) + (" bit/s" if row["secret_key_rate_bps"] is not None else "")),
+             ("key rate per second", short_number(row["secret_key_rate_bps"])
+              + (" bit/s" if row["secret_key_rate_bps"] is not None else "")),
              ("total epsilon", short_number(row["eps_total"])),
              ("block fill time", _fmt_seconds(row["block_fill_time_s"])),
              ("statistics", exp.get("statistics", ""))]
@@ -185,7 +187,8 @@ def to_html(report) -> str:
               f"<figcaption>{_e(f.message)}; LaTeX source shown.</figcaption></figure>"
     parts.append("<section>" + h2("Key-length formula") + pic
                  + f"<details><summary>LaTeX source</summary><pre id=\"formula-latex\">{_e(f.latex)}</pre></details>"
-                 + "<h3>terms (bits)</h3>" + _table("terms-table", ["term", "bits"], list((exp.get("terms") or {}).items()))
+                 + "<h3>terms (bits)</h3>"
+                 + _table("terms-table", ["term", "bits"], list((exp.get("terms") or {}).items()))
                  + "<h3>estimates</h3>" + _table("estimates-table", ["quantity", "value"],
                                                   list((exp.get("estimates") or {}).items()))
                  + "</section>")

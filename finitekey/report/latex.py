@@ -11,7 +11,8 @@ References
 
 from __future__ import annotations
 
-from .formats import latex_escape, latex_number, to_latex as table_latex
+from .formats import latex_escape, latex_number
+from .formats import to_latex as table_latex
 
 __all__ = ["report_latex", "wrap_document"]
 

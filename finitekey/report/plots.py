@@ -26,8 +26,8 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Sequence
 
 import numpy as np
 from matplotlib import rc_context
@@ -36,11 +36,21 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..channel import repeaterless_bound  # noqa: F401  (re-exported for the figure builders)
+from ..channel import repeaterless_bound
 from ..errors import InputError
 
-__all__ = ["Curve", "STYLE", "PLOT_FORMATS", "rate_figure", "blocksize_figure", "ledger_figure",
-           "figure_bytes", "axis_label", "use_log", "repeaterless_bound"]
+__all__ = [
+    "PLOT_FORMATS",
+    "STYLE",
+    "Curve",
+    "axis_label",
+    "blocksize_figure",
+    "figure_bytes",
+    "ledger_figure",
+    "rate_figure",
+    "repeaterless_bound",
+    "use_log",
+]
 
 PLOT_FORMATS = ("png", "svg", "pdf")
 
@@ -169,7 +179,7 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
             ax.plot(xs, ys, color="#2b3a55", linestyle=(0, (6, 3)), linewidth=1.5, label=c.label, zorder=2)
         elif c.kind == "bound":
             ax.plot(xs, ys, color="#8a8478", linestyle=(0, (1, 2)), linewidth=1.6, label=c.label, zorder=1)
-            top = max(ys) * (10 if logy else 1.2)
+            top = max(ys) * (2 if logy else 1.2)
             ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.08, linewidth=0, zorder=0)
         else:
             raise InputError("curve.kind", c.kind, "one of: finite, asymptotic, bound")

@@ -23,12 +23,12 @@ import os
 import sys
 import threading
 import time
+from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
-from typing import Callable, Sequence
 
 from ..errors import InputError
 
-__all__ = ["default_jobs", "run_map", "Progress"]
+__all__ = ["Progress", "default_jobs", "run_map"]
 
 
 def default_jobs() -> int:
@@ -177,7 +177,8 @@ def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: s
 
 def _run_dask(func, items, jobs, cluster, bar) -> list:
     try:
-        from distributed import Client, LocalCluster, as_completed as dask_completed
+        from distributed import Client, LocalCluster
+        from distributed import as_completed as dask_completed
     except ImportError:
         raise InputError("--cluster", cluster,
                          "a back end that is installed: dask.distributed is missing "

@@ -25,20 +25,28 @@ from __future__ import annotations
 
 import hashlib
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Sequence
 
-from .. import __version__
-from .. import protocols
+from .. import __version__, protocols
 from ..errors import FiniteKeyError, InputError
 from ..files import read_toml
 from ..optimize.dispatch import scenario_from_dict
 from .grid import Axis, GridPoint, expand_grid, parse_vary
 from .runner import run_map
 
-__all__ = ["LoadedScenario", "PointTask", "SweepTable", "load_scenario", "evaluate_point", "run_sweep",
-           "fixed_evaluator", "MODES", "flatten"]
+__all__ = [
+    "MODES",
+    "LoadedScenario",
+    "PointTask",
+    "SweepTable",
+    "evaluate_point",
+    "fixed_evaluator",
+    "flatten",
+    "load_scenario",
+    "run_sweep",
+]
 
 MODES = ("design", "fixed", "blocksize")
 

@@ -1,0 +1,24 @@
+#!/usr/bin/env bash
+# Regenerate every table and plot of the examples (run from the repository root: bash examples/generate.sh).
+set -euo pipefail
+cd "$(dirname "$0")"
+fk() { python -m finitekey.cli "$@"; }
+
+# 1. metropolitan link between two data centres
+fk table metro_datacentre.toml --vary block.pulses=1e9,1e10,1e11,1e12 -o metro_datacentre_table.md
+fk plot metro_datacentre.toml --vary link.distance_km=0:80:10 --vary block.pulses=1e9,1e11 -o metro_datacentre_rate.png
+
+# 2. long-haul span between trusted nodes
+fk table longhaul_trusted_node.toml --vary link.distance_km=80:200:40 --vary block.pulses=1e11,1e12 \
+   -o longhaul_trusted_node_table.md
+fk plot longhaul_trusted_node.toml --vary link.distance_km=0:300:30 --vary block.pulses=1e10,1e12 \
+   -o longhaul_trusted_node_rate.png
+
+# 3. short, high-loss free-space pass: how much loss a single small block tolerates
+fk table freespace_pass.toml --vary link.extra_loss_db=26:38:2 -o freespace_pass_table.md
+fk table freespace_pass.toml --vary link.extra_loss_db=28:36:4 --blocksize positive -o freespace_pass_blocksize.md
+fk plot freespace_pass.toml --vary link.extra_loss_db=24:40:2 --vary block.pulses=5e9,2.5e10 -o freespace_pass_rate.png
+
+# a full report for one of them
+fk report metro_datacentre.toml --vary link.distance_km=0:80:20 --vary block.pulses=1e9,1e11 \
+   -o metro_datacentre_report.html --latex metro_datacentre_report.tex
