@@ -83,21 +83,30 @@ class Domain:
         if arr.ndim == 0:
             return self._check_scalar(field, arr.item())
         flat = arr.ravel()
-        bad = ~np.isfinite(flat.astype(float))
-        if not bad.any():
-            if self.integer:
-                bad |= flat != np.floor(flat)
-            bad |= (flat < self.lower) | (flat > self.upper)
-            if self.lower_open:
-                bad |= flat == self.lower
-            if self.upper_open:
-                bad |= flat == self.upper
-        if bad.any():
+        if not self._array_ok(flat):
+            bad = np.array([not self.contains(float(x)) for x in flat.tolist()])
             first = flat[np.argmax(bad)].item()
             raise InputError(field, first, self.describe())
         if self.integer:
+            if arr.dtype.kind in "iu":
+                return arr.astype(np.int64, copy=False) if arr.dtype.kind == "i" or arr.max() < 2**62 \
+                    else arr.astype(object)
             return arr.astype(np.int64) if np.all(np.abs(arr) < 2**62) else arr.astype(object)
-        return arr.astype(float)
+        return arr.astype(float, copy=False)
+
+    def _array_ok(self, flat) -> bool:
+        """Fast whole-array test (min/max propagate NaN); the slow path finds the culprit."""
+        lo, hi = flat.min(), flat.max()
+        if flat.dtype.kind == "f" and not (np.isfinite(lo) and np.isfinite(hi)):
+            return False
+        lo, hi = float(lo), float(hi)
+        if lo < self.lower or hi > self.upper:
+            return False
+        if (self.lower_open and lo == self.lower) or (self.upper_open and hi == self.upper):
+            return False
+        if self.integer and flat.dtype.kind == "f" and not np.array_equal(flat, np.floor(flat)):
+            return False
+        return True
 
     def _check_scalar(self, field, value):
         if isinstance(value, numbers.Integral):
