@@ -196,3 +196,28 @@ def test_dask_local_cluster_equals_local_run(bb84_file):
     local = run_sweep(loaded, vary, jobs=1, progress=False)
     dask = run_sweep(loaded, vary, jobs=2, cluster="local", progress=False)
     assert dask.rows == local.rows
+
+
+def test_dask_scheduler_address_equals_local_run(bb84_file):
+    distributed = pytest.importorskip("distributed", reason="dask[distributed] is not installed")
+    import dask
+    loaded = load_scenario(bb84_file)
+    vary = ["channel.qber=0.02,0.04"]
+    local = run_sweep(loaded, vary, jobs=1, progress=False)
+    with dask.config.set({"distributed.worker.multiprocessing-method": "fork"}):
+        cluster = distributed.LocalCluster(n_workers=1, threads_per_worker=1, host="127.0.0.1",
+                                           dashboard_address=None, silence_logs=40)
+    try:
+        assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
+        remote = run_sweep(loaded, vary, cluster=cluster.scheduler_address, progress=False)
+    finally:
+        cluster.close()
+    assert remote.rows == local.rows
+
+
+def test_unreachable_scheduler_is_an_input_error():
+    pytest.importorskip("distributed", reason="dask[distributed] is not installed")
+    from finitekey.report.runner import run_map
+    with pytest.raises(InputError) as info:
+        run_map(abs, [1], cluster="tcp://127.0.0.1:9", progress=False, connect_timeout=1.0)
+    assert "--cluster" in str(info.value) and "reachable" in str(info.value)

@@ -119,7 +119,7 @@ def _mp_context():
 
 
 def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: str | None = None,
-            progress: bool | None = None, stream=None) -> list:
+            progress: bool | None = None, stream=None, connect_timeout: float = 10.0) -> list:
     """``[func(x) for x in items]``, computed in parallel, returned in input order.
 
     Parameters
@@ -136,6 +136,8 @@ def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: s
         127.0.0.1, or a scheduler address such as ``"tcp://10.0.0.5:8786"``.
     progress : bool, optional
         Force the progress bar on/off; default: on when stderr is a terminal.
+    connect_timeout : float
+        Seconds to wait for a remote scheduler.
 
     Raises
     ------
@@ -151,7 +153,7 @@ def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: s
     bar = Progress(len(items), stream=stream, enabled=progress)
     try:
         if cluster is not None:
-            return _run_dask(func, items, jobs, cluster, bar)
+            return _run_dask(func, items, jobs, cluster, bar, connect_timeout)
         if jobs == 1 or len(items) <= 1:
             out = []
             for x in items:
@@ -175,7 +177,7 @@ def run_map(func: Callable, items: Sequence, jobs: int | None = None, cluster: s
         bar.close()
 
 
-def _run_dask(func, items, jobs, cluster, bar) -> list:
+def _run_dask(func, items, jobs, cluster, bar, connect_timeout=10.0) -> list:
     try:
         from distributed import Client, LocalCluster
         from distributed import as_completed as dask_completed
@@ -197,7 +199,7 @@ def _run_dask(func, items, jobs, cluster, bar) -> list:
             client = Client(local)
         else:
             try:
-                client = Client(cluster, timeout="10s")
+                client = Client(cluster, timeout=f"{connect_timeout}s")
             except (OSError, TimeoutError, ValueError) as exc:
                 raise InputError("--cluster", cluster, f"the address of a reachable Dask scheduler ({exc})") from None
         try:
