@@ -280,7 +280,8 @@ def objective_problem(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STA
     return DesignProblem(scenario, statistics)
 
 
-def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation: bool = True) -> tuple:
+def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation: bool = True,
+             alternatives: list | None = None) -> tuple:
     """Best (theta, float key length): screen all starts in one vectorised call, refine the best of them with
     L-BFGS-B (batched forward-difference gradient); the next best ``refine - 1`` are refined too while no
     positive key has been found."""
@@ -307,37 +308,39 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
         if np.isfinite(res.fun) and -res.fun > best_v:
             best_x, best_v = res.x, -res.fun
     if best_v <= 0 and continuation:
-        best_x, best_v = _continue_in_block_size(problem, best_x, best_v, box)
+        best_x, best_v = _continue_in_block_size(problem, best_x, best_v, box, alternatives)
     return best_x, best_v * problem.scale()
 
 
-def _continue_in_block_size(problem, best_x, best_v, box):
-    """No key found: optimise at larger blocks (where the key region is larger), then come back.
+def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
+    """No key found: homotopy in the block size.
 
     Below the threshold the continued objective can favour sending almost nothing (all terms shrink towards
-    the constant penalties); the optimum of a larger block lies in the key region and is a good start for
-    the block asked for.
+    the constant penalties).  The optimum of a much larger block lies well inside the key region; it is
+    followed down to the block asked for in steps of about 3x, each a local refinement from the previous
+    optimum, so the path stays on the key-giving branch as long as one exists.
     """
     sc = problem.scenario
-    far = DesignProblem(replace(sc, pulses=sc.pulses * 1e4), problem.statistics)
-    x_far, v_far = optimise(far, continuation=False)
-    if v_far <= 0:          # not even a 10^4 times larger block gives a key: none here
+    far = DesignProblem(replace(sc, pulses=sc.pulses * 1e3), problem.statistics)
+    x, v = optimise(far, refine=1, continuation=False)
+    if v <= 0:          # not even a 1000 times larger block gives a key: none here
         return best_x, best_v
-    for factor in (3.0, 10.0, 100.0, 1e4):
-        if factor == 1e4:
-            x_big, v_big = x_far, v_far
-        else:
-            big = DesignProblem(replace(sc, pulses=sc.pulses * factor), problem.statistics)
-            x_big, v_big = optimise(big, continuation=False)
-        if v_big <= 0:
-            continue
+    for factor in (300.0, 100.0, 30.0, 10.0, 3.0, 1.7, 1.0):
+        step = problem if factor == 1.0 else DesignProblem(replace(sc, pulses=sc.pulses * factor), problem.statistics)
+        # a trust box around the previous optimum keeps the first quasi-Newton steps on the branch
+        local = [(max(a, xi - 1.0), min(b, xi + 1.0)) for (a, b), xi in zip(box, x)]
         with np.errstate(all="ignore"):
-            res = _opt.minimize(problem.negative_with_gradient, x_big, jac=True, method="L-BFGS-B", bounds=box,
-                                options={"maxiter": 150, "ftol": 1e-9, "gtol": 1e-7})
-        if np.isfinite(res.fun) and -res.fun > best_v:
-            best_x, best_v = res.x, -res.fun
-        if best_v > 0:
-            break
+            res = _opt.minimize(step.negative_with_gradient, x, jac=True, method="L-BFGS-B", bounds=local,
+                                options={"maxiter": 100, "ftol": 1e-9, "gtol": 1e-7})
+        if np.isfinite(res.fun):
+            x = res.x
+    v = float(problem.key_length_float(x[:, None])[0]) / problem.scale()
+    if alternatives is not None:
+        # the end of the key-giving branch: its certified length may be positive even where the (looser)
+        # float objective is not, so the caller evaluates it too
+        alternatives.append(x)
+    if v > best_v:
+        best_x, best_v = x, v
     return best_x, best_v
 
 
@@ -362,7 +365,8 @@ def _expected_block(problem: DesignProblem, theta) -> tuple:
     return block, c, qx
 
 
-def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, starts=None) -> DesignResult:
+def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, starts=None,
+           continuation: bool = True) -> DesignResult:
     """Optimise the free parameters of ``scenario`` for the largest expected key.
 
     Returns
@@ -372,8 +376,21 @@ def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, st
         per second, the chosen parameters and the expected counts.
     """
     problem = objective_problem(scenario, statistics)
-    theta, fval = optimise(problem, starts)
-    return _result(problem, theta, fval)
+    alt = []
+    theta, fval = optimise(problem, starts, continuation=continuation, alternatives=alt)
+    return _best_certified(problem, theta, fval, alt)
+
+
+def _best_certified(problem, theta, fval, alternatives) -> DesignResult:
+    """The result at ``theta``; where it has no key, the alternatives are certified too and the best kept."""
+    res = _result(problem, theta, fval)
+    if res.expected.secret_key_length > 0:
+        return res
+    for x in alternatives:
+        other = _result(problem, x, float(problem.key_length_float(x[:, None])[0]))
+        if other.expected.secret_key_length > res.expected.secret_key_length:
+            res = other
+    return res
 
 
 def _result(problem, theta, fval) -> DesignResult:
@@ -384,7 +401,8 @@ def _result(problem, theta, fval) -> DesignResult:
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
               "key_basis_probability": qx,
-              "epsilon_split": kl.ledger.fractions(), "float_objective_bits": float(fval)}
+              "epsilon_split": kl.ledger.fractions(), "float_objective_bits": float(fval),
+              "theta": [float(t) for t in np.atleast_1d(theta)]}
     expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": sc.pulses}
     return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
@@ -413,11 +431,14 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
         sc = _at_distance(scenario, L)
         prob = objective_problem(sc, statistics)
         starts = prob.starts() + ([warm] if warm is not None else [])
-        theta, fval = optimise(prob, starts)
-        if fval <= 0:
-            return False, theta, None
-        res = _result(prob, theta, fval)
-        return res.expected.secret_key_length > 0, theta, res
+        # the warm start from the nearest distance with a key is a continuation path in distance; the
+        # block-size homotopy still runs when no key is found, so a key is not missed near the edge
+        alt = []
+        theta, fval = optimise(prob, starts, alternatives=alt)
+        res = _best_certified(prob, theta, fval, alt)
+        ok = res.expected.secret_key_length > 0
+        th = np.asarray(res.parameters["theta"]) if ok else theta
+        return ok, th, (res if ok else None)
 
     ok, warm, best = positive(0.0, None)
     if not ok:
@@ -457,27 +478,40 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
         if asym <= 0:
             raise InputError("target", str(target), "a link with a positive asymptotic rate")
 
-    def meets(N):
-        sc = D.DecoyScenario(scenario.model, float(N), scenario.eps_sec, scenario.eps_cor, scenario.ec_efficiency,
-                             scenario.intensity_count, scenario.intensities, scenario.intensity_probabilities,
-                             scenario.key_basis_probability, scenario.weakest_intensity)
-        res = design(sc, statistics)
+    def meets(N, warm=None):
+        sc = replace(scenario, pulses=float(N))
+        prob = objective_problem(sc, statistics)
+        starts = prob.starts() + ([warm] if warm is not None else [])
+        alt = []
+        theta, fval = optimise(prob, starts, alternatives=alt)
+        res = _best_certified(prob, theta, fval, alt)
         ell = res.expected.secret_key_length
         if target.kind is BlockTargetKind.POSITIVE_KEY:
-            return ell > 0, res
-        if target.kind is BlockTargetKind.KEY_BITS:
-            return ell >= target.value, res
-        return ell / N >= target.value * asym, res
+            ok = ell > 0
+        elif target.kind is BlockTargetKind.KEY_BITS:
+            ok = ell >= target.value
+        else:
+            ok = ell / N >= target.value * asym
+        return ok, res, np.asarray(res.parameters["theta"])
 
-    lo, hi = 3.0, math.log10(max_pulses)
-    ok, res_hi = meets(10 ** hi)
+    # bracket: from a large block (homotopy-robust design) down in half-decade steps, each warm-started from
+    # the last block that met the target (a continuation path in the block size)
+    hi = math.log10(max_pulses)
+    ok, res_hi, th_hi = meets(10 ** hi)
     if not ok:
         raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
+    lo = hi
+    while lo > 3.0:
+        lo -= 0.5
+        ok, res, th = meets(10 ** lo, th_hi)
+        if not ok:
+            break
+        hi, res_hi, th_hi = lo, res, th
     while hi - lo > 1e-3:
         mid = 0.5 * (lo + hi)
-        ok, res = meets(10 ** mid)
+        ok, res, th = meets(10 ** mid, th_hi)
         if ok:
-            hi, res_hi = mid, res
+            hi, res_hi, th_hi = mid, res, th
         else:
             lo = mid
     N = int(math.ceil(10 ** hi))
