@@ -221,3 +221,47 @@ def test_unreachable_scheduler_is_an_input_error():
     with pytest.raises(InputError) as info:
         run_map(abs, [1], cluster="tcp://127.0.0.1:9", progress=False, connect_timeout=1.0)
     assert "--cluster" in str(info.value) and "reachable" in str(info.value)
+
+
+def test_plot_command_kinds_and_provenance(bb84_file, tmp_path):
+    from PIL import Image
+    sha = hashlib.sha256(bb84_file.read_bytes()).hexdigest()
+    rate = tmp_path / "rate.png"
+    assert main(["plot", str(bb84_file), "--vary", "channel.qber=0.01,0.03", "--vary", "budget.signals=1e9,1e11",
+                 "--jobs", "1", "-o", str(rate)]) == 0
+    with Image.open(rate) as im:  # reference: Pillow's PNG reader
+        assert im.size[0] > 500 and sha in im.text["Source"] and "finitekey plot" in im.text["Comment"]
+    svg = tmp_path / "ledger.svg"
+    assert main(["plot", str(bb84_file), "--kind", "ledger", "-o", str(svg)]) == 0
+    assert sha in svg.read_text() and "<svg" in svg.read_text()
+    pdf = tmp_path / "bs.pdf"
+    assert main(["plot", str(bb84_file), "--kind", "blocksize", "--vary", "channel.qber=0.02,0.04", "--jobs", "1",
+                 "--target", "bits=1000", "-o", str(pdf)]) == 0
+    assert pdf.read_bytes()[:5] == b"%PDF-"
+
+
+@pytest.mark.parametrize("argv,needle", [
+    (["plot", "{f}", "--vary", "channel.qber=0.02", "-o", "x.gif"], ".png"),
+    (["plot", "{f}", "-o", "x.png"], "--vary"),
+    (["report", "{f}", "-o", "x.txt"], ".html"),
+    (["report", "{f}", "-o", "x.html", "--latex", "x.doc"], ".tex"),
+    (["table", "{f}", "--vary", "channel.qber=0.02", "--blocksize", "sometimes"], "bits=N"),
+    (["table", "{f}", "--vary", "channel.qber=0.02", "--statistics", "magic"], "serfling"),
+    (["table", "{f}", "--vary", "channel.qber=0.02", "-o", "/no/such/dir/t.md"], "existing directory"),
+])
+def test_cli_input_errors_exit_2(bb84_file, capsys, argv, needle, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    assert main([a.replace("{f}", str(bb84_file)) for a in argv]) == 2
+    err = capsys.readouterr().err
+    assert needle in err and "Traceback" not in err
+
+
+def test_report_with_latex_fragment(bb84_file, tmp_path):
+    page, tex = tmp_path / "r.html", tmp_path / "r.tex"
+    assert main(["report", str(bb84_file), "--vary", "channel.qber=0.02,0.04", "--blocksize", "positive",
+                 "--jobs", "1", "-o", str(page), "--latex", str(tex)]) == 0
+    html_text, tex_text = page.read_text(), tex.read_text()
+    assert 'id="blocksize-table"' in html_text and 'id="plot-blocksize"' in html_text
+    assert hashlib.sha256(bb84_file.read_bytes()).hexdigest() in tex_text
+    assert tex_text.count(r"\begin{tabular}") == 4  # result, ledger, sweep, block size
+    assert r"\lfloor" in tex_text and tex_text.count(r"\begin{") == tex_text.count(r"\end{")

@@ -8,7 +8,7 @@ from types import SimpleNamespace
 from ..errors import InputError
 from ..report.figures import KINDS, blocksize_plot, ledger_plot, rate_plot
 from ..report.plots import PLOT_FORMATS, figure_bytes
-from ..report.sweep import _design_row, load_scenario, run_sweep
+from ..report.sweep import _design_row, load_scenario, provenance, run_sweep
 from .table_cmd import add_sweep_arguments, command_line, write_output
 
 
@@ -57,7 +57,7 @@ def _run(args) -> int:
             table = run_sweep(loaded, args.vary, mode="blocksize", statistics=args.statistics, target=args.target,
                               jobs=args.jobs, cluster=args.cluster, progress=args.progress, command=cmd)
             fig = blocksize_plot(table)
-    write_output(args.output, figure_bytes(fig, fmt))
+    write_output(args.output, figure_bytes(fig, fmt, provenance(loaded, cmd)))
     return 0
 
 

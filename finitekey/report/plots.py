@@ -297,13 +297,26 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
     return fig
 
 
-def figure_bytes(fig: Figure, fmt: str) -> bytes:
-    """Encode a figure as PNG, SVG or PDF bytes (deterministic metadata)."""
+def figure_bytes(fig: Figure, fmt: str, provenance: dict | None = None) -> bytes:
+    """Encode a figure as PNG, SVG or PDF bytes, with deterministic metadata (no dates).
+
+    Parameters
+    ----------
+    provenance : dict, optional
+        ``version``, ``input``, ``input_sha256``, ``command``: written into the
+        file's metadata (PNG text chunks, SVG Dublin Core, PDF info dictionary).
+    """
     if fmt not in PLOT_FORMATS:
         raise InputError("format", fmt, "one of: " + ", ".join(PLOT_FORMATS))
     buf = io.BytesIO()
-    meta = {"png": {"Software": "finitekey"}, "svg": {"Date": None, "Creator": "finitekey"},
-            "pdf": {"CreationDate": None, "ModDate": None, "Creator": "finitekey", "Producer": "finitekey"}}[fmt]
+    p = provenance or {}
+    tool = f"finitekey {p.get('version', '')}".strip()
+    source = f"{p.get('input', '')} sha256 {p.get('input_sha256', '')}" if p else ""
+    command = p.get("command", "")
+    meta = {"png": {"Software": tool, **({"Source": source, "Comment": command} if p else {})},
+            "svg": {"Date": None, "Creator": tool, **({"Source": source, "Description": command} if p else {})},
+            "pdf": {"CreationDate": None, "ModDate": None, "Creator": tool, "Producer": tool,
+                    **({"Subject": source, "Keywords": command} if p else {})}}[fmt]
     with rc_context(STYLE):
         fig.savefig(buf, format=fmt, dpi=110 if fmt == "png" else None, metadata=meta)
     return buf.getvalue()

@@ -45,6 +45,7 @@ __all__ = [
     "fixed_evaluator",
     "flatten",
     "load_scenario",
+    "provenance",
     "run_sweep",
 ]
 
