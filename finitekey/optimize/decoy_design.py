@@ -378,19 +378,19 @@ def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, st
     problem = objective_problem(scenario, statistics)
     alt = []
     theta, fval = optimise(problem, starts, continuation=continuation, alternatives=alt)
-    return _best_certified(problem, theta, fval, alt)
+    return _best_certified(problem, theta, fval, alt)[0]
 
 
-def _best_certified(problem, theta, fval, alternatives) -> DesignResult:
-    """The result at ``theta``; where it has no key, the alternatives are certified too and the best kept."""
+def _best_certified(problem, theta, fval, alternatives) -> tuple:
+    """(result, theta) at ``theta``; where it has no key, the alternatives are certified too, best kept."""
     res = _result(problem, theta, fval)
     if res.expected.secret_key_length > 0:
-        return res
+        return res, theta
     for x in alternatives:
         other = _result(problem, x, float(problem.key_length_float(x[:, None])[0]))
         if other.expected.secret_key_length > res.expected.secret_key_length:
-            res = other
-    return res
+            res, theta = other, x
+    return res, theta
 
 
 def _result(problem, theta, fval) -> DesignResult:
@@ -401,8 +401,7 @@ def _result(problem, theta, fval) -> DesignResult:
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
               "key_basis_probability": qx,
-              "epsilon_split": kl.ledger.fractions(), "float_objective_bits": float(fval),
-              "theta": [float(t) for t in np.atleast_1d(theta)]}
+              "epsilon_split": kl.ledger.fractions(), "float_objective_bits": float(fval)}
     expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": sc.pulses}
     return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
@@ -423,8 +422,8 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
     Returns
     -------
     dict
-        ``reach_km`` (0 if no key even at 0 km), ``design`` (the DesignResult at that distance, as a dict),
-        ``statistics``, ``tolerance_km``.
+        ``reach_km`` (0 if no key even at 0 km), ``statistics``, ``tolerance_km`` and, when there is a key,
+        the certified key length, rate and chosen parameters at that distance (``*_at_reach``).
     """
 
     def positive(L, warm):
@@ -435,14 +434,13 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
         # block-size homotopy still runs when no key is found, so a key is not missed near the edge
         alt = []
         theta, fval = optimise(prob, starts, alternatives=alt)
-        res = _best_certified(prob, theta, fval, alt)
+        res, th = _best_certified(prob, theta, fval, alt)
         ok = res.expected.secret_key_length > 0
-        th = np.asarray(res.parameters["theta"]) if ok else theta
         return ok, th, (res if ok else None)
 
     ok, warm, best = positive(0.0, None)
     if not ok:
-        return {"reach_km": 0.0, "design": None, "statistics": statistics, "tolerance_km": tolerance_km}
+        return _reach_dict(0.0, None, statistics, tolerance_km)
     lo, hi = 0.0, None
     step = 50.0
     while hi is None:
@@ -463,7 +461,20 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
             lo, warm, best = mid, th, res
         else:
             hi = mid
-    return {"reach_km": lo, "design": best.to_dict(), "statistics": statistics, "tolerance_km": tolerance_km}
+    return _reach_dict(lo, best, statistics, tolerance_km)
+
+
+def _reach_dict(reach_km, best, statistics, tolerance_km) -> dict:
+    out = {"reach_km": float(reach_km), "statistics": statistics, "tolerance_km": tolerance_km}
+    if best is None:
+        return out
+    p = best.parameters
+    out.update({"secret_key_length_at_reach": int(best.expected.secret_key_length),
+                "secret_key_rate_per_pulse_at_reach": float(best.secret_key_rate_per_signal),
+                "intensities_at_reach": list(p["intensities"]),
+                "intensity_probabilities_at_reach": list(p["intensity_probabilities"]),
+                "key_basis_probability_at_reach": float(p["key_basis_probability"])})
+    return out
 
 
 def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = D.DEFAULT_STATISTICS,
@@ -484,7 +495,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
         starts = prob.starts() + ([warm] if warm is not None else [])
         alt = []
         theta, fval = optimise(prob, starts, alternatives=alt)
-        res = _best_certified(prob, theta, fval, alt)
+        res, theta = _best_certified(prob, theta, fval, alt)
         ell = res.expected.secret_key_length
         if target.kind is BlockTargetKind.POSITIVE_KEY:
             ok = ell > 0
@@ -492,7 +503,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
             ok = ell >= target.value
         else:
             ok = ell / N >= target.value * asym
-        return ok, res, np.asarray(res.parameters["theta"])
+        return ok, res, theta
 
     # bracket: from a large block (homotopy-robust design) down in half-decade steps, each warm-started from
     # the last block that met the target (a continuation path in the block size)
