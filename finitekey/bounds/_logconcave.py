@@ -204,16 +204,20 @@ class _Walk:
     chunks: int
     last: float        # last included P_i
     next_ratio_at: int | None  # point whose ratio produces the first excluded term; None if support exhausted
+    #: the included P_i as one float64 array (only when the walk was asked to keep them)
+    values: np.ndarray | None = None
 
 
-def _walk(fam, start: int, step: int, with_moment: bool = False) -> _Walk:
+def _walk(fam, start: int, step: int, with_moment: bool = False, keep: bool = False) -> _Walk:
     """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support.
 
-    ``with_moment`` also accumulates ``sum i P_i`` (for the float path's bias correction).
+    ``with_moment`` also accumulates ``sum i P_i`` (for the float path's bias correction); ``keep``
+    returns the included terms as well (the sums are the same, operation for operation).
     """
     ratio = fam.down_ratio if step < 0 else fam.up_ratio
     avail = (start - fam.lo) if step < 0 else (fam.hi - start)
     total, moment, last, j, chunks, terms, size = 1.0, 0.0, 1.0, start, 0, 1, _FIRST_CHUNK
+    kept = [np.ones(1)] if keep else None
     while avail > 0:
         m = min(size, avail)
         js = np.arange(m, dtype=np.float64)
@@ -233,8 +237,12 @@ def _walk(fam, start: int, step: int, with_moment: bool = False) -> _Walk:
                 if with_moment:
                     moment += _moment(prods[:idx], terms)
                 last = float(prods[idx - 1])
-            return _Walk(total, moment, terms + idx, chunks, last, j + step * idx)
+                if keep:
+                    kept.append(prods[:idx])
+            return _Walk(total, moment, terms + idx, chunks, last, j + step * idx, _join(kept))
         total += float(prods.sum())
+        if keep:
+            kept.append(prods)
         if with_moment:
             moment += _moment(prods, terms)
         terms += m
@@ -242,7 +250,11 @@ def _walk(fam, start: int, step: int, with_moment: bool = False) -> _Walk:
         j += step * m
         avail -= m
         size = min(size * 4, _MAX_CHUNK)
-    return _Walk(total, moment, terms, chunks, last, None)
+    return _Walk(total, moment, terms, chunks, last, None, _join(kept))
+
+
+def _join(kept):
+    return None if kept is None else np.concatenate(kept)
 
 
 def _moment(prods: np.ndarray, first: int) -> float:
@@ -268,7 +280,14 @@ def _walk_ball(fam, start: int, step: int, prec: int) -> arb:
     prec = max(prec, _WORK_PREC)
     if not fam.float_ok:
         return _walk_arb(fam, start, step, prec)
-    w = _walk(fam, start, step)
+    return _ball_of_walk(fam, start, step, prec, _walk(fam, start, step))
+
+
+def _ball_of_walk(fam, start: int, step: int, prec: int, w: _Walk, log_start: arb | None = None) -> arb:
+    """The certified ball of :func:`_walk_ball` from a float walk ``w`` already run (same ``start``, ``step``).
+
+    ``log_start`` is ``fam.log_pmf_arb(start)`` at ``prec`` bits if the caller has it.
+    """
     with ctx.workprec(prec):
         m = arb((fam.roundings + 2) * (w.terms + 1) + 2 * w.chunks + 8)
         gamma = m * _U / (1 - m * _U)
@@ -281,7 +300,9 @@ def _walk_ball(fam, start: int, step: int, prec: int) -> arb:
                 return _walk_arb(fam, start, step, prec)
             hi = hi + arb(w.last) / (1 - gamma) * r / (1 - r)
         sums = arb(lo.lower()).union(arb(hi.upper()))
-        return fam.log_pmf_arb(start).exp() * sums
+        if log_start is None:
+            log_start = fam.log_pmf_arb(start)
+        return log_start.exp() * sums
 
 
 def _walk_arb(fam, start: int, step: int, prec: int, max_terms: int = 10**7) -> arb:
@@ -337,6 +358,19 @@ def cdf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
         if fam.mode_side(x) < 0:
             return _clip01(_walk_ball(fam, x, -1, prec))
         return _clip01(1 - _walk_ball(fam, x + 1, +1, prec))
+
+
+def cdf_ball_of_walk(fam, x: int, w: _Walk, log_start: arb, prec: int = _WORK_PREC) -> arb:
+    """:func:`cdf_ball` for ``x`` at or below the mode, reusing the downward float walk ``w`` from ``x``.
+
+    Same ball as ``cdf_ball(fam, x, prec)`` (same walk, same arithmetic); ``log_start`` must be
+    ``fam.log_pmf_arb(x)`` at ``max(prec, 128)`` bits.
+    """
+    if not (fam.lo <= x < fam.hi and fam.mode_side(x) < 0 and fam.float_ok):
+        raise ValueError("cdf_ball_of_walk: x must lie in the support, below its top, at or below the mode")
+    prec = max(prec, _WORK_PREC)
+    with ctx.workprec(prec):
+        return _clip01(_ball_of_walk(fam, x, -1, prec, w, log_start))
 
 
 def sf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:

@@ -41,7 +41,8 @@ from ..compile import Enclosure
 from ..domains import Domain, Parameter
 from ..errors import ComputationError, InputError
 from ._base import EPS, Bound, Reference
-from ._logconcave import MAX_POPULATION, Hypergeometric, cdf_ball, lnbinom_arb, log_cdf, tail_arb_reference
+from ._logconcave import (MAX_POPULATION, Hypergeometric, _lgamma1, _walk, _Walk, cdf_ball, cdf_ball_of_walk,
+                          lnbinom_arb, log_cdf, tail_arb_reference)
 from ._registry import register
 
 __all__ = ["HypergeometricSampling", "key_errors_upper", "key_errors_upper_certified", "hypergeometric_cdf",
@@ -87,6 +88,8 @@ class _SamplingTail:
         self.n, self.k, self.e, self.N = n, k, e, n + k
         with ctx.workprec(_PREC):
             self.log_norm = lnbinom_arb(self.N, k)
+            self._lg_e = _lgamma1(e)
+            self._lg_ke = _lgamma1(k - e)
 
     def family(self, T: int) -> Hypergeometric:
         return Hypergeometric(self.N, T, self.k, self.log_norm)
@@ -96,6 +99,35 @@ class _SamplingTail:
 
     def ball(self, T: int, prec: int = _PREC) -> arb:
         return cdf_ball(self.family(T), self.e, prec)
+
+    def log_start(self, T: int) -> arb:
+        """``ln Pr[X = e | T]`` at 128 bits: the very ball of ``family(T).log_pmf_arb(e)`` (same
+        operations in the same order), with the two lgamma values that do not depend on ``T`` reused."""
+        e, k, N = self.e, self.k, self.N
+        with ctx.workprec(_PREC):
+            return ((_lgamma1(T) - self._lg_e - _lgamma1(T - e))
+                    + (_lgamma1(N - T) - self._lg_ke - _lgamma1(N - T - k + e)) - self.log_norm)
+
+    def probe(self, T: int) -> "_Probe | None":
+        """Float ``ln F(e; T)`` with its walk kept, or None where :func:`log_cdf` would not walk down
+        from ``e`` (then the caller falls back to the plain search).  The float value is the one
+        :meth:`log_cdf` returns, operation for operation."""
+        fam = self.family(T)
+        e = self.e
+        if not (fam.lo <= e < fam.hi and fam.mode_side(e) < 0):
+            return None
+        ls = self.log_start(T)
+        w = _walk(fam, e, -1, keep=True)
+        return _Probe(T, fam, ls, w, float(ls.mid()) + math.log(w.total + 0.0))
+
+
+class _Probe:
+    """One evaluation of the tail at ``T``: family, start-term ball, kept float walk, float log tail."""
+
+    __slots__ = ("T", "fam", "log_start", "walk", "log_F")
+
+    def __init__(self, T: int, fam: Hypergeometric, log_start: arb, walk: _Walk, log_F: float):
+        self.T, self.fam, self.log_start, self.walk, self.log_F = T, fam, log_start, walk, log_F
 
 
 def _guess(n, k, e, eps) -> float:
@@ -168,6 +200,130 @@ def _search(tail: _SamplingTail, eps: float) -> int:
         slow = slow + 1 if (hi - lo) > width // 2 and (hi - lo) > 2 else 0
     return lo
 
+#: a float log tail derived from a neighbouring walk decides the comparison with ln eps only when it is
+#: this far from it (both it and the direct value are within about 1e-10 of the exact log tail)
+_DERIVED_MARGIN = 1e-8
+
+
+def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
+    """Predicted real ``T`` where ``ln F(e; T) = ln eps``, from the terms of the walk at ``pr.T``.
+
+    ``F(e; T + d) = sum_j p(j; T) R_j(d)`` exactly, with ``R_j(d) = prod_{t=T}^{T+d-1} r_j(t)`` and
+    ``r_j(t) = p(j; t+1)/p(j; t) = (t+1)/(t+1-j) * (N-t-k+j)/(N-t)``; ``ln R_j(d)`` is approximated by
+    the midpoint rule ``d ln r_j(T + (d-1)/2)`` and the equation solved for ``d`` by three secant steps.
+    Only a guess: every decision is taken on exact (float or certified) tails.
+    """
+    T, e, k, N = pr.T, tail.e, tail.k, tail.N
+    P = pr.walk.values
+    j = float(e) - np.arange(P.size, dtype=np.float64)
+    logP = np.log(P)
+    target = log_eps - pr.log_F
+    lo_d, hi_d = float(e + 1 - T), float(e + tail.n - T)
+
+    def H(d):
+        t = T + 0.5 * (d - 1.0)
+        x = logP + d * (np.log1p(j / (t + 1.0 - j)) + np.log1p(-(k - j) / (N - t)))
+        m = float(x.max())
+        return m + math.log(float(np.exp(x - m).sum()))
+
+    with np.errstate(all="ignore"):
+        base = math.log(float(P.sum()))
+        slope = float((P * (np.log1p(j / (T + 1.0 - j)) + np.log1p(-(k - j) / (N - T)))).sum()) / float(P.sum())
+        if not (math.isfinite(slope) and slope < 0):
+            return None
+        d0, h0 = 0.0, -target
+        d1 = min(max(target / slope, lo_d), hi_d)
+        for _ in range(3):
+            h1 = H(d1) - base - target
+            if not math.isfinite(h1) or h1 == h0:
+                break
+            d2 = min(max(d1 - h1 * (d1 - d0) / (h1 - h0), lo_d), hi_d)
+            d0, h0, d1 = d1, h1, d2
+            if abs(d1 - d0) < 0.05:
+                break
+    return T + d1 if math.isfinite(d1) else None
+
+
+def _derived_log_below(tail: _SamplingTail, pr: _Probe) -> float:
+    """Float ``ln F(e; T - 1)`` from the walk at ``T = pr.T``: ``F(T-1) = sum_j p(j; T) / r_j(T-1)``."""
+    T, e, k, N = pr.T, tail.e, tail.k, tail.N
+    P = pr.walk.values
+    j = float(e) - np.arange(P.size, dtype=np.float64)
+    inv = ((T - j) / float(T)) * (float(N - T + 1) / ((N - T + 1.0 - k) + j))
+    return pr.log_F + math.log(float((P * inv).sum())) - math.log(float(P.sum()))
+
+
+def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
+    """``(T, probe at T + 1 or None)`` with T the result of :func:`_search`; a handful of walks.
+
+    Candidates ``c`` come from :func:`_predict`; ``c`` is accepted when the direct float tail at ``c + 1``
+    is ``<= eps`` and the tail at ``c`` is ``> eps`` (derived from the same walk when that is far from
+    ``eps``, else evaluated directly).  This is exactly the bracket :func:`_search` ends on, so the
+    result is the same (the float tail is non-increasing in ``T``).  Anything unusual (a tail across
+    the mode, the ends of ``[e, e + n]``, a poor prediction) falls back to :func:`_search`.
+    """
+    n, e = tail.n, tail.e
+    lo, hi = e, e + n
+    if hi - lo < 4:
+        return _search(tail, eps), None
+    log_eps = math.log(eps)
+    known_lo, known_hi = lo, hi + 1  # float tail > eps at known_lo; <= eps at known_hi (virtual)
+    c = int(min(max(round(_guess(tail.n, tail.k, e, eps)) - 1, lo + 1), hi - 2))
+    for _ in range(max_rounds):
+        if not (known_lo <= c < known_hi - 1) or c + 1 >= hi:
+            break
+        pr = tail.probe(c + 1)
+        if pr is None:
+            break
+        if pr.log_F - log_eps > 0:
+            known_lo = c + 1
+            nxt = _predict(tail, pr, log_eps)
+            if nxt is None:
+                break
+            c = max(int(math.floor(nxt)), c + 1)
+            continue
+        known_hi = c + 1
+        if c == e:
+            return c, pr
+        g0 = _derived_log_below(tail, pr) - log_eps
+        if not math.isfinite(g0):
+            break
+        if abs(g0) <= _DERIVED_MARGIN:
+            p0 = tail.probe(c)
+            if p0 is None:
+                break
+            g0 = p0.log_F - log_eps
+            if not g0 > 0:
+                known_hi = c
+                nxt = _predict(tail, p0, log_eps)
+                if nxt is None:
+                    break
+                c = min(int(math.floor(nxt)), c - 1)
+                continue
+        if g0 > 0:
+            return c, pr
+        nxt = _predict(tail, pr, log_eps)
+        if nxt is None:
+            break
+        c = min(int(math.floor(nxt)), c - 1)
+    return _search(tail, eps), None
+
+
+def _upper_T(tail: _SamplingTail, eps: float, prec: int) -> int:
+    """Certified: smallest ``T' >= T`` (``T`` from the float search) with ``F(e; T'+1) <= eps`` certified."""
+    T, pr = _fast_search(tail, eps)
+    if pr is None or T >= tail.e + tail.n:
+        return _certified_upper_T(tail, eps, T, prec)
+    if prec <= _PREC:
+        ls = pr.log_start
+    else:
+        with ctx.workprec(prec):
+            ls = pr.fam.log_pmf_arb(tail.e)
+    if cdf_ball_of_walk(pr.fam, tail.e, pr.walk, ls, prec).upper() <= arb(eps):
+        return T
+    return _certified_upper_T(tail, eps, T + 1, prec)
+
+
 
 def key_errors_upper(n: int, k: int, e: int, eps: float) -> int:
     """Upper confidence bound on the number of errors among the ``n`` key bits (float path).
@@ -195,7 +351,7 @@ def key_errors_upper(n: int, k: int, e: int, eps: float) -> int:
     .. [1] J. Neyman, Phil. Trans. R. Soc. A 236 (1937) 333-380.
     """
     n, k, e, eps = _check(n, k, e, eps)
-    return _search(_SamplingTail(n, k, e), eps) - e
+    return _fast_search(_SamplingTail(n, k, e), eps)[0] - e
 
 
 def _certified_upper_T(tail: _SamplingTail, eps: float, T: int, prec: int) -> int:
@@ -235,8 +391,7 @@ def key_errors_upper_certified(n: int, k: int, e: int, eps: float, prec: int = _
     .. [1] J. Neyman, Phil. Trans. R. Soc. A 236 (1937) 333-380.
     """
     n, k, e, eps = _check(n, k, e, eps)
-    tail = _SamplingTail(n, k, e)
-    return _certified_upper_T(tail, eps, _search(tail, eps), prec) - e
+    return _upper_T(_SamplingTail(n, k, e), eps, prec) - e
 
 
 def hypergeometric_cdf(x: int, N: int, K: int, k: int) -> float:
@@ -306,7 +461,7 @@ class HypergeometricSampling(Bound):
         out = np.empty(bn.shape)
         for idx in np.ndindex(bn.shape):
             ni, ki, ei = int(bn[idx]), int(bk[idx]), int(be[idx])
-            t = _search(_SamplingTail(ni, ki, ei), float(beps[idx]))
+            t = _fast_search(_SamplingTail(ni, ki, ei), float(beps[idx]))[0]
             out[idx] = (t - ei) / ni - ei / ki
         return out if out.ndim else float(out)
 
@@ -330,7 +485,7 @@ class HypergeometricSampling(Bound):
     def _exact_T_range(self, eps, params, prec):
         n, k, e = params["n"], params["k"], params["e"]
         tail = _SamplingTail(n, k, e)
-        t = _search(tail, eps)
+        t = _fast_search(tail, eps)[0]
         return tail, _certified_lower_T(tail, eps, t, prec), _certified_upper_T(tail, eps, t, prec)
 
     def _deviation_certified(self, eps, params, prec):
