@@ -281,7 +281,7 @@ def objective_problem(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STA
 
 
 def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation: bool = True,
-             alternatives: list | None = None) -> tuple:
+             alternatives: list | None = None, warm=None) -> tuple:
     """Best (theta, float key length): screen all starts in one vectorised call, refine the best of them with
     L-BFGS-B (batched forward-difference gradient); the next best ``refine - 1`` are refined too while no
     positive key has been found."""
@@ -307,9 +307,27 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
             continue
         if np.isfinite(res.fun) and -res.fun > best_v:
             best_x, best_v = res.x, -res.fun
-    if best_v <= 0 and continuation:
+    if warm is not None:
+        # warm start from a neighbouring problem (nearby distance or block size): follow it locally
+        x = _local(problem, np.clip(np.asarray(warm, dtype=float), lo, hi), box)
+        v = float(problem.key_length_float(x[:, None])[0]) / problem.scale()
+        if alternatives is not None:
+            alternatives.append(x)
+        if v > best_v:
+            best_x, best_v = x, v
+    if best_v <= 0 and continuation and warm is None:
         best_x, best_v = _continue_in_block_size(problem, best_x, best_v, box, alternatives)
     return best_x, best_v * problem.scale()
+
+
+def _local(problem, x, box):
+    """Local L-BFGS-B refinement inside a trust box of +-1 around ``x`` (keeps the first quasi-Newton steps
+    on the branch ``x`` is on)."""
+    local = [(max(a, xi - 1.0), min(b, xi + 1.0)) for (a, b), xi in zip(box, x)]
+    with np.errstate(all="ignore"):
+        res = _opt.minimize(problem.negative_with_gradient, x, jac=True, method="L-BFGS-B", bounds=local,
+                            options={"maxiter": 100, "ftol": 1e-9, "gtol": 1e-7})
+    return res.x if np.isfinite(res.fun) else x
 
 
 def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
@@ -327,13 +345,7 @@ def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
         return best_x, best_v
     for factor in (300.0, 100.0, 30.0, 10.0, 3.0, 1.7, 1.0):
         step = problem if factor == 1.0 else DesignProblem(replace(sc, pulses=sc.pulses * factor), problem.statistics)
-        # a trust box around the previous optimum keeps the first quasi-Newton steps on the branch
-        local = [(max(a, xi - 1.0), min(b, xi + 1.0)) for (a, b), xi in zip(box, x)]
-        with np.errstate(all="ignore"):
-            res = _opt.minimize(step.negative_with_gradient, x, jac=True, method="L-BFGS-B", bounds=local,
-                                options={"maxiter": 100, "ftol": 1e-9, "gtol": 1e-7})
-        if np.isfinite(res.fun):
-            x = res.x
+        x = _local(step, x, box)
     v = float(problem.key_length_float(x[:, None])[0]) / problem.scale()
     if alternatives is not None:
         # the end of the key-giving branch: its certified length may be positive even where the (looser)
@@ -429,11 +441,10 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
     def positive(L, warm):
         sc = _at_distance(scenario, L)
         prob = objective_problem(sc, statistics)
-        starts = prob.starts() + ([warm] if warm is not None else [])
-        # the warm start from the nearest distance with a key is a continuation path in distance; the
-        # block-size homotopy still runs when no key is found, so a key is not missed near the edge
+        # the warm start from the nearest distance with a key is a continuation path in distance (followed
+        # locally); without one, the block-size homotopy runs when no key is found
         alt = []
-        theta, fval = optimise(prob, starts, alternatives=alt)
+        theta, fval = optimise(prob, alternatives=alt, warm=warm)
         res, th = _best_certified(prob, theta, fval, alt)
         ok = res.expected.secret_key_length > 0
         return ok, th, (res if ok else None)
@@ -478,7 +489,7 @@ def _reach_dict(reach_km, best, statistics, tolerance_km) -> dict:
 
 
 def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = D.DEFAULT_STATISTICS,
-              max_pulses: float = 1e18) -> BlockSizeResult:
+              max_pulses: float = 1e15) -> BlockSizeResult:
     """Smallest number of pulses whose optimised design reaches ``target`` (bisection on log N).
 
     ``fraction=F`` is a fraction of the infinite-decoy asymptotic rate with no sifting loss
@@ -492,9 +503,8 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     def meets(N, warm=None):
         sc = replace(scenario, pulses=float(N))
         prob = objective_problem(sc, statistics)
-        starts = prob.starts() + ([warm] if warm is not None else [])
         alt = []
-        theta, fval = optimise(prob, starts, alternatives=alt)
+        theta, fval = optimise(prob, alternatives=alt, warm=warm)
         res, theta = _best_certified(prob, theta, fval, alt)
         ell = res.expected.secret_key_length
         if target.kind is BlockTargetKind.POSITIVE_KEY:
@@ -505,19 +515,29 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
             ok = ell / N >= target.value * asym
         return ok, res, theta
 
-    # bracket: from a large block (homotopy-robust design) down in half-decade steps, each warm-started from
-    # the last block that met the target (a continuation path in the block size)
-    hi = math.log10(max_pulses)
-    ok, res_hi, th_hi = meets(10 ** hi)
-    if not ok:
-        raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
-    lo = hi
-    while lo > 3.0:
-        lo -= 0.5
-        ok, res, th = meets(10 ** lo, th_hi)
-        if not ok:
-            break
-        hi, res_hi, th_hi = lo, res, th
+    # bracket in half-decade steps from the scenario's own block size: downwards warm-started from the last
+    # block that met the target (a continuation path in the block size), or upwards until one does
+    top = math.log10(max_pulses)
+    x = min(math.log10(scenario.pulses), top)
+    ok, res_hi, th_hi = meets(10 ** x)
+    if ok:
+        hi = lo = x
+        while lo > 3.0:
+            lo -= 0.5
+            ok, res, th = meets(10 ** lo, th_hi)
+            if not ok:
+                break
+            hi, res_hi, th_hi = lo, res, th
+    else:
+        lo = x
+        while True:
+            if lo >= top:
+                raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
+            hi = min(lo + 0.5, top)
+            ok, res_hi, th_hi = meets(10 ** hi)
+            if ok:
+                break
+            lo = hi
     while hi - lo > 1e-3:
         mid = 0.5 * (lo + hi)
         ok, res, th = meets(10 ** mid, th_hi)

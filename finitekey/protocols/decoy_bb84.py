@@ -505,7 +505,7 @@ _REQUIRED = {
     "reconciliation": ("efficiency",),
 }
 _EC_EFF = Domain(1.0, 10.0)
-_PULSES = Domain(1.0, 1e20)
+_PULSES = Domain(1.0, 1e15)   # counts must stay below 2**50 for the exact tails
 _COUNT_K = Domain(2, 8, integer=True)
 
 
