@@ -104,7 +104,8 @@ def test_repeaterless_bound():
     (Detector, dict(efficiency=0.0, dark_count_probability=1e-6), "detector.efficiency"),
     (Detector, dict(efficiency=1.2, dark_count_probability=1e-6), "detector.efficiency"),
     (Detector, dict(efficiency=0.1, dark_count_probability=-1e-6), "detector.dark_count_probability"),
-    (Detector, dict(efficiency=0.1, dark_count_probability=1e-6, misalignment_error=0.6), "detector.misalignment_error"),
+    (Detector, dict(efficiency=0.1, dark_count_probability=1e-6, misalignment_error=0.6),
+     "detector.misalignment_error"),
     (Detector, dict(efficiency=0.1, dark_count_probability=1e-6, dead_time_s=-1.0), "detector.dead_time_s"),
     (Source, dict(repetition_rate_hz=0.0), "source.repetition_rate_hz"),
 ])

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from finitekey.channel import Detector, Link, LinkModel, repeaterless_bound
-from finitekey.protocols.decoy_bb84 import gllp_rate, optimal_gllp_rate
+from finitekey.protocols.decoy_bb84 import optimal_gllp_rate
 
 
 def _early_link(L):

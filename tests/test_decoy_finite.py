@@ -4,7 +4,6 @@ monotonicity, validation."""
 import math
 
 import mpmath
-import numpy as np
 import pytest
 
 from finitekey.channel import Detector, Link, LinkModel

@@ -33,7 +33,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import optimize as _opt
 
-from ..errors import ComputationError, InputError
+from ..errors import InputError
 from ..protocols import _decoy_analysis as A
 from ..protocols import decoy_bb84 as D
 from ..protocols._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult
@@ -123,7 +123,6 @@ class DesignProblem:
         return mu, p, qx, split
 
     def encode(self, mu, p, qx, split=None):
-        sc = self.scenario
         n_mu, n_p, n_q, n_e = self.sizes()
         out = []
         if n_mu:

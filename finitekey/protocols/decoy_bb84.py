@@ -47,20 +47,20 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import asdict, dataclass
 
 import numpy as np
 from flint import arb, ctx
 from scipy import optimize as _opt
 
-from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
+from ..bounds.hypergeometric_exact import key_errors_upper_certified
 from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
-from ..channel import Detector, Link, LinkModel, Source, check_intensity_list, repeaterless_bound
+from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
 from ._registry import register
-from ._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult
+from ._result import BlockTarget, DesignResult, KeyLengthResult
 
 __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS",
            "term_specs", "gllp_rate", "optimal_gllp_rate", "three_intensity_condition"]
