@@ -18,6 +18,7 @@ from fractions import Fraction
 import mpmath
 import numpy as np
 import pytest
+from flint import arb, ctx
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import special, stats
@@ -339,3 +340,77 @@ def test_binomial_many_terms_at_1e12_vs_mpmath():
     enc = binomial_cdf_certified(x, n, p)
     assert enc.lo <= ref <= enc.hi
     assert float(ref) == pytest.approx(0.01, rel=1e-12)   # the limit solves its defining equation
+
+
+# ---- the fast inversion (predictor + one certified walk) against brute force and the plain search ----------
+@settings(max_examples=300, deadline=None)
+@given(n=st.integers(1, 400), k=st.integers(1, 300), data=st.data())
+def test_fast_inversion_equals_brute_force_grid(n, k, data):
+    # reference: brute-force scan of scipy.stats.hypergeom.cdf over every T (exact at these sizes)
+    e = data.draw(st.integers(0, k))
+    eps = data.draw(st.one_of(st.floats(1e-30, 1e-3), st.floats(1e-3, 0.99)))
+    ref = brute_force_key_errors(n, k, e, eps)
+    cdf = stats.hypergeom.cdf(e, n + k, e + ref + np.arange(2), k)
+    if abs(cdf[0] / eps - 1) < 1e-9 or (ref < n and abs(cdf[1] / eps - 1) < 1e-9):
+        return  # a tail equal to eps to scipy's accuracy: the scan itself cannot decide
+    assert key_errors_upper(n, k, e, eps) == ref, (n, k, e, eps)
+    assert key_errors_upper_certified(n, k, e, eps) == ref, (n, k, e, eps)
+
+
+@pytest.mark.parametrize("n,k,e,eps", [
+    (2 * 10**4, 3000, 60, 1e-20), (5 * 10**4, 5 * 10**4, 1000, 1e-6), (10**5, 200, 0, 1e-12),
+    (3 * 10**4, 10**4, 2500, 1e-3),
+])
+def test_fast_inversion_neyman_property_vs_mpmath(n, k, e, eps):
+    # 60-digit mpmath reference (independent code above): tail at T_u above eps, at T_u + 1 at most eps
+    import finitekey.bounds.hypergeometric_exact as hx
+    t, probe = hx._fast_search(hx._SamplingTail(n, k, e), eps)
+    assert probe is not None and probe.T == t + 1  # the predictor path, not the fallback scan
+    m = key_errors_upper_certified(n, k, e, eps)
+    assert m == key_errors_upper(n, k, e, eps) == t - e
+    assert mp_hypergeom_cdf(e, n + k, e + m, k) > eps >= mp_hypergeom_cdf(e, n + k, e + m + 1, k)
+
+
+def test_fast_inversion_equals_plain_search_large():
+    # against the plain bracketed search kept as the fallback (the implementation before the predictor):
+    # the same float bound, and the same certified bound, on random blocks from 1e6 to 1e12 positions
+    import finitekey.bounds.hypergeometric_exact as hx
+    rng = np.random.default_rng(99)
+    for i in range(60):
+        N = int(10 ** rng.uniform(6, 12 if i < 6 else 9.5))
+        k = int(N * 10 ** rng.uniform(-3, -0.3))
+        n = N - k
+        e = int(k * 10 ** rng.uniform(-4, -1)) if i % 7 else 0
+        eps = float(10 ** rng.uniform(-35, -2))
+        tail = hx._SamplingTail(n, k, e)
+        t_old = hx._search(tail, eps)
+        cert_old = hx._certified_upper_T(tail, eps, t_old, 128)
+        assert key_errors_upper(n, k, e, eps) == t_old - e, (n, k, e, eps)
+        assert key_errors_upper_certified(n, k, e, eps) == cert_old - e, (n, k, e, eps)
+
+
+def test_ball_of_kept_walk_is_the_plain_ball():
+    # the certificate built from the search's walk is the very ball cdf_ball computes, and holds the
+    # 60-digit mpmath value
+    from finitekey.bounds._logconcave import Hypergeometric, _walk, cdf_ball, cdf_ball_of_walk
+    N, K, k, x = 10**9, 2 * 10**7, 10**5, 1800
+    fam = Hypergeometric(N, K, k)
+    for first in (512, 37):  # the default chunking and another one
+        w = _walk(fam, x, -1, keep=True, first_chunk=first)
+        with ctx.workprec(128):
+            b = cdf_ball_of_walk(fam, x, w, fam.log_pmf_arb(x))
+        ref = mp_hypergeom_cdf(x, N, K, k)
+        assert b.lower() <= arb(str(ref)) <= b.upper()
+        assert float(b.rad()) / float(b.mid()) < 1e-8
+        if first == 512:
+            plain = cdf_ball(fam, x)
+            assert b.mid() == plain.mid() and b.rad() == plain.rad()
+        assert w.values.size == w.terms and abs(float(w.values.sum()) / w.total - 1) < 1e-13
+    with pytest.raises(ValueError):
+        cdf_ball_of_walk(fam, 3000, w, fam.log_pmf_arb(3000))  # above the mode: not a downward walk
+
+
+def test_certified_inversion_higher_precision_same_result():
+    # the certificate at 256 bits recomputes the start term at that precision; same integer here
+    n, k, e, eps = 10**8, 5 * 10**6, 10**5, 1e-21
+    assert key_errors_upper_certified(n, k, e, eps, prec=256) == key_errors_upper_certified(n, k, e, eps)

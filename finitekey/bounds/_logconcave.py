@@ -66,6 +66,8 @@ _THRESHOLD = 2.0**-64  # terms below this fraction of the running sum end the wa
 _FIRST_CHUNK = 512
 _MAX_CHUNK = 1 << 16
 _WORK_PREC = 128       # bits for arb start terms (|lgamma| <= 3e16, so >= 2**-70 absolute)
+_ONE = np.ones(1)      # P_0 of a kept walk (read-only constant)
+_ONE.setflags(write=False)
 
 
 def _lgamma1(m: int) -> arb:
@@ -208,16 +210,19 @@ class _Walk:
     values: np.ndarray | None = None
 
 
-def _walk(fam, start: int, step: int, with_moment: bool = False, keep: bool = False) -> _Walk:
+def _walk(fam, start: int, step: int, with_moment: bool = False, keep: bool = False,
+          first_chunk: int = _FIRST_CHUNK) -> _Walk:
     """Sum P_i = p(start + step i) / p(start) in float64 until negligible or out of support.
 
     ``with_moment`` also accumulates ``sum i P_i`` (for the float path's bias correction); ``keep``
-    returns the included terms as well (the sums are the same, operation for operation).
+    returns the included terms as well (the sums are the same, operation for operation);
+    ``first_chunk`` sizes the first block of terms (later blocks grow fourfold).  The certificate
+    holds for any chunking: the chunk count enters the rounding count.
     """
     ratio = fam.down_ratio if step < 0 else fam.up_ratio
     avail = (start - fam.lo) if step < 0 else (fam.hi - start)
-    total, moment, last, j, chunks, terms, size = 1.0, 0.0, 1.0, start, 0, 1, _FIRST_CHUNK
-    kept = [np.ones(1)] if keep else None
+    total, moment, last, j, chunks, terms, size = 1.0, 0.0, 1.0, start, 0, 1, max(1, min(first_chunk, _MAX_CHUNK))
+    kept = [_ONE] if keep else None
     while avail > 0:
         m = min(size, avail)
         js = np.arange(m, dtype=np.float64)

@@ -108,16 +108,29 @@ class _SamplingTail:
             return ((_lgamma1(T) - self._lg_e - _lgamma1(T - e))
                     + (_lgamma1(N - T) - self._lg_ke - _lgamma1(N - T - k + e)) - self.log_norm)
 
-    def probe(self, T: int) -> "_Probe | None":
+    def probe(self, T: int, light: bool = False) -> "_Probe | None":
         """Float ``ln F(e; T)`` with its walk kept, or None where :func:`log_cdf` would not walk down
-        from ``e`` (then the caller falls back to the plain search).  The float value is the one
-        :meth:`log_cdf` returns, operation for operation."""
+        from ``e`` (then the caller falls back to the plain search).
+
+        The float value is the one :meth:`log_cdf` returns (same start ball, same sum) up to the
+        chunking of the walk, which is sized here from the first ratio.  ``light`` takes the start term
+        from float ``lgamma`` instead (absolute error up to ~1e-16 N ln N): good enough to predict
+        where the bound lies, never used to decide it (``log_start`` is then None).
+        """
         fam = self.family(T)
-        e = self.e
+        e, k, N = self.e, self.k, self.N
         if not (fam.lo <= e < fam.hi and fam.mode_side(e) < 0):
             return None
+        # terms fall at least geometrically with the first ratio r: 45 / -ln r terms reach 2**-64
+        r = e * (N - T - k + e) / ((T - e + 1) * (k - e + 1)) if e > 0 else 0.0
+        first = int(45.0 / -math.log(r)) + 16 if 0.0 < r < 1.0 - 1e-9 else 16
+        w = _walk(fam, e, -1, keep=True, first_chunk=min(first, e - fam.lo + 1))
+        if light:
+            lg = math.lgamma
+            ls_f = (lg(T + 1) - lg(e + 1) - lg(T - e + 1) + lg(N - T + 1) - lg(k - e + 1) - lg(N - T - k + e + 1)
+                    - (lg(N + 1) - lg(k + 1) - lg(N - k + 1)))
+            return _Probe(T, fam, None, w, ls_f + math.log(w.total + 0.0))
         ls = self.log_start(T)
-        w = _walk(fam, e, -1, keep=True)
         return _Probe(T, fam, ls, w, float(ls.mid()) + math.log(w.total + 0.0))
 
 
@@ -203,6 +216,8 @@ def _search(tail: _SamplingTail, eps: float) -> int:
 #: a float log tail derived from a neighbouring walk decides the comparison with ln eps only when it is
 #: this far from it (both it and the direct value are within about 1e-10 of the exact log tail)
 _DERIVED_MARGIN = 1e-8
+#: up to this population the first (prediction-only) walk takes its start term from float lgamma
+_LIGHT_MAX_POPULATION = 10**10
 
 
 def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
@@ -210,46 +225,51 @@ def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
 
     ``F(e; T + d) = sum_j p(j; T) R_j(d)`` exactly, with ``R_j(d) = prod_{t=T}^{T+d-1} r_j(t)`` and
     ``r_j(t) = p(j; t+1)/p(j; t) = (t+1)/(t+1-j) * (N-t-k+j)/(N-t)``; ``ln R_j(d)`` is approximated by
-    the midpoint rule ``d ln r_j(T + (d-1)/2)`` and the equation solved for ``d`` by three secant steps.
-    Only a guess: every decision is taken on exact (float or certified) tails.
+    the midpoint rule ``d ln r_j(T + (d-1)/2)``.  A linear step from the mean slope, then Newton steps
+    on that model.  Only a guess: every decision is taken on exact (float or certified) tails.
     """
     T, e, k, N = pr.T, tail.e, tail.k, tail.N
     P = pr.walk.values
+    P = P[:max(1, int(np.searchsorted(-P, -1e-12)))]  # terms decrease; smaller ones do not move the guess
     j = float(e) - np.arange(P.size, dtype=np.float64)
-    logP = np.log(P)
+    kj = k - j
     target = log_eps - pr.log_F
     lo_d, hi_d = float(e + 1 - T), float(e + tail.n - T)
-
-    def H(d):
-        t = T + 0.5 * (d - 1.0)
-        x = logP + d * (np.log1p(j / (t + 1.0 - j)) + np.log1p(-(k - j) / (N - t)))
-        m = float(x.max())
-        return m + math.log(float(np.exp(x - m).sum()))
-
     with np.errstate(all="ignore"):
-        base = math.log(float(P.sum()))
-        slope = float((P * (np.log1p(j / (T + 1.0 - j)) + np.log1p(-(k - j) / (N - T)))).sum()) / float(P.sum())
+        sP = float(P.sum())
+        f = np.log1p(j / (T + 1.0 - j)) + np.log1p(-kj / (N - T))
+        slope = float(P @ f) / sP
         if not (math.isfinite(slope) and slope < 0):
             return None
-        d0, h0 = 0.0, -target
-        d1 = min(max(target / slope, lo_d), hi_d)
+        d = min(max(target / slope, lo_d), hi_d)
+        logP = np.log(P)
         for _ in range(3):
-            h1 = H(d1) - base - target
-            if not math.isfinite(h1) or h1 == h0:
+            t = T + 0.5 * (d - 1.0)
+            f = np.log1p(j / (t + 1.0 - j)) + np.log1p(-kj / (N - t))
+            x = logP + d * f
+            m = float(x.max())
+            w = np.exp(x - m)
+            sw = float(w.sum())
+            h = m + math.log(sw / sP)
+            hp = float(w @ f) / sw
+            if not (math.isfinite(h) and math.isfinite(hp) and hp < 0):
+                return None
+            step = (h - target) / hp
+            d = min(max(d - step, lo_d), hi_d)
+            if abs(step) < 0.05:
                 break
-            d2 = min(max(d1 - h1 * (d1 - d0) / (h1 - h0), lo_d), hi_d)
-            d0, h0, d1 = d1, h1, d2
-            if abs(d1 - d0) < 0.05:
-                break
-    return T + d1 if math.isfinite(d1) else None
+    return T + d if math.isfinite(d) else None
 
 
 def _derived_log_below(tail: _SamplingTail, pr: _Probe) -> float:
     """Float ``ln F(e; T - 1)`` from the walk at ``T = pr.T``: ``F(T-1) = sum_j p(j; T) / r_j(T-1)``."""
     T, e, k, N = pr.T, tail.e, tail.k, tail.N
     P = pr.walk.values
+    P = P[:max(1, int(np.searchsorted(-P, -2.0**-60)))]  # dropped terms: < 1e-12 of the sum in all
     j = float(e) - np.arange(P.size, dtype=np.float64)
     inv = ((T - j) / float(T)) * (float(N - T + 1) / ((N - T + 1.0 - k) + j))
+    if not inv[-1] <= 2.0:  # the ratio grows down the walk: the cut-off terms could matter at T - 1
+        return math.nan
     return pr.log_F + math.log(float((P * inv).sum())) - math.log(float(P.sum()))
 
 
@@ -268,7 +288,14 @@ def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
         return _search(tail, eps), None
     log_eps = math.log(eps)
     known_lo, known_hi = lo, hi + 1  # float tail > eps at known_lo; <= eps at known_hi (virtual)
-    c = int(min(max(round(_guess(tail.n, tail.k, e, eps)) - 1, lo + 1), hi - 2))
+    c = int(min(max(round(_guess(tail.n, tail.k, e, eps)), lo + 1), hi - 1))
+    first = tail.probe(c, light=tail.N <= _LIGHT_MAX_POPULATION)
+    if first is None:
+        return _search(tail, eps), None
+    nxt = _predict(tail, first, log_eps)
+    if nxt is None:
+        return _search(tail, eps), None
+    c = int(min(max(math.floor(nxt), lo), hi - 1))
     for _ in range(max_rounds):
         if not (known_lo <= c < known_hi - 1) or c + 1 >= hi:
             break
@@ -286,9 +313,7 @@ def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
         if c == e:
             return c, pr
         g0 = _derived_log_below(tail, pr) - log_eps
-        if not math.isfinite(g0):
-            break
-        if abs(g0) <= _DERIVED_MARGIN:
+        if not abs(g0) > _DERIVED_MARGIN:  # too close to call (or not derivable): evaluate directly
             p0 = tail.probe(c)
             if p0 is None:
                 break
