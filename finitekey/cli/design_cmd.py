@@ -36,13 +36,17 @@ def _args(p: argparse.ArgumentParser) -> None:
 
 def _value(v):
     if isinstance(v, dict):
-        return ", ".join(f"{k}={fmt(x)}" for k, x in v.items())
+        return ", ".join(f"{k}={_value(x)}" for k, x in v.items())
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_value(x) for x in v) + "]"
+    if isinstance(v, float) and not v.is_integer() and 1e-3 <= abs(v) < 1e5:
+        return f"{v:.4g}"
     return fmt(v)
 
 
 def render_design(d) -> str:
     rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
-    rows += [["expected: " + k, fmt(v), "count" if k != "key_qber" else "fraction"]
+    rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
              for k, v in d.expected_counts.items()]
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
     rows.append(["secret key rate", fmt(d.secret_key_rate_per_signal), "bits per signal"])
