@@ -74,3 +74,17 @@ def test_missing_dask_is_a_clear_input_error(monkeypatch):
     with pytest.raises(InputError) as info:
         run_map(abs, [1, 2], cluster="local")
     assert "finitekey[cluster]" in str(info.value)
+
+
+def test_single_threaded_blas_restores_thread_counts():
+    import numpy as np
+    from finitekey.report.runner import _openblas_controls, single_threaded_blas
+    controls = _openblas_controls()
+    before = [g() for _, g in controls]
+    a = np.random.default_rng(1).standard_normal((60, 60))
+    with single_threaded_blas() as n:
+        assert n == len(controls)
+        assert all(g() == 1 for _, g in controls)
+        inside = a @ a  # reference: the same product outside the block
+    assert [g() for _, g in controls] == before
+    assert np.array_equal(inside, a @ a)
