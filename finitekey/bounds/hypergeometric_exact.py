@@ -218,6 +218,8 @@ def _search(tail: _SamplingTail, eps: float) -> int:
 _DERIVED_MARGIN = 1e-8
 #: up to this population the first (prediction-only) walk takes its start term from float lgamma
 _LIGHT_MAX_POPULATION = 10**10
+#: the predictor uses about this many terms of a long walk
+_PREDICT_TERMS = 1024
 
 
 def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
@@ -231,7 +233,11 @@ def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
     T, e, k, N = pr.T, tail.e, tail.k, tail.N
     P = pr.walk.values
     P = P[:max(1, int(np.searchsorted(-P, -1e-12)))]  # terms decrease; smaller ones do not move the guess
-    j = float(e) - np.arange(P.size, dtype=np.float64)
+    offs = np.arange(P.size, dtype=np.float64)
+    if P.size > 2 * _PREDICT_TERMS:  # a long, smooth walk: every s-th term (the ratio of sums is kept)
+        stride = P.size // _PREDICT_TERMS
+        P, offs = P[::stride], offs[::stride]
+    j = float(e) - offs
     kj = k - j
     target = log_eps - pr.log_F
     lo_d, hi_d = float(e + 1 - T), float(e + tail.n - T)
