@@ -24,7 +24,10 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
+import sys
 
 import numpy as np
 from flint import arb, ctx
@@ -34,6 +37,26 @@ from . import _decoy_analysis as A
 
 TRUNCATION = 30
 _WINDOW = 400
+
+
+@contextlib.contextmanager
+def _quiet_stdout():
+    """Silence file descriptor 1 while the solver runs: HiGHS prints a banner from C code to stdout, which
+    would corrupt the command line's JSON output."""
+    sys.stdout.flush()
+    try:
+        saved = os.dup(1)
+    except OSError:  # pragma: no cover - no usable descriptor
+        yield
+        return
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), 1)
+            yield
+    finally:
+        sys.stdout.flush()
+        os.dup2(saved, 1)
+        os.close(saved)
 
 
 def conditional_intensity(mu, p, n_max: int) -> np.ndarray:
@@ -118,7 +141,8 @@ def _solve_bound(P, caps, lo, hi, total, target: int, sign: int, use_total: bool
     cons = [G @ x >= h, E @ x == d]
     prob = cp.Problem(cp.Minimize(c @ x), cons)
     try:
-        prob.solve(solver=cp.HIGHS)
+        with _quiet_stdout():
+            prob.solve(solver=cp.HIGHS, output_flag=False)
     except cp.error.SolverError as exc:  # pragma: no cover - solver failure
         raise ComputationError(f"decoy LP failed: {exc}") from exc
     if prob.status not in ("optimal", "optimal_inaccurate"):
