@@ -218,17 +218,18 @@ def _search(tail: _SamplingTail, eps: float) -> int:
 _DERIVED_MARGIN = 1e-8
 #: up to this population the first (prediction-only) walk takes its start term from float lgamma
 _LIGHT_MAX_POPULATION = 10**10
-#: the predictor uses about this many terms of a long walk
-_PREDICT_TERMS = 1024
+#: the predictor uses at most about twice this many terms of a walk
+_PREDICT_TERMS = 256
 
 
 def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
     """Predicted real ``T`` where ``ln F(e; T) = ln eps``, from the terms of the walk at ``pr.T``.
 
     ``F(e; T + d) = sum_j p(j; T) R_j(d)`` exactly, with ``R_j(d) = prod_{t=T}^{T+d-1} r_j(t)`` and
-    ``r_j(t) = p(j; t+1)/p(j; t) = (t+1)/(t+1-j) * (N-t-k+j)/(N-t)``; ``ln R_j(d)`` is approximated by
-    the midpoint rule ``d ln r_j(T + (d-1)/2)``.  A linear step from the mean slope, then Newton steps
-    on that model.  Only a guess: every decision is taken on exact (float or certified) tails.
+    ``r_j(t) = p(j; t+1)/p(j; t) = (t+1)/(t+1-j) * (N-t-k+j)/(N-t)``.  With ``f_j(t) = ln r_j(t)``
+    taken linear in ``t`` (value and derivative at ``T``), ``ln R_j(d) ~ d f_j + d(d-1)/2 f_j'``; a
+    linear step from the mean slope, then at most two Newton steps on that model.  Only a guess:
+    every decision is taken on exact (float or certified) tails.
     """
     T, e, k, N = pr.T, tail.e, tail.k, tail.N
     P = pr.walk.values
@@ -237,27 +238,26 @@ def _predict(tail: _SamplingTail, pr: _Probe, log_eps: float) -> float | None:
     if P.size > 2 * _PREDICT_TERMS:  # a long, smooth walk: every s-th term (the ratio of sums is kept)
         stride = P.size // _PREDICT_TERMS
         P, offs = P[::stride], offs[::stride]
-    j = float(e) - offs
-    kj = k - j
     target = log_eps - pr.log_F
     lo_d, hi_d = float(e + 1 - T), float(e + tail.n - T)
     with np.errstate(all="ignore"):
+        a = (T + 1.0 - e) + offs          # t + 1 - j at t = T
+        b = float(N - T - k + e) - offs    # N - t - k + j
+        f0 = np.log(b / a) + math.log((T + 1.0) / (N - T))
+        f1 = (1.0 / (T + 1.0) + 1.0 / (N - T)) - (1.0 / a + 1.0 / b)
         sP = float(P.sum())
-        f = np.log1p(j / (T + 1.0 - j)) + np.log1p(-kj / (N - T))
-        slope = float(P @ f) / sP
+        slope = float(P @ f0) / sP
         if not (math.isfinite(slope) and slope < 0):
             return None
         d = min(max(target / slope, lo_d), hi_d)
         logP = np.log(P)
-        for _ in range(3):
-            t = T + 0.5 * (d - 1.0)
-            f = np.log1p(j / (t + 1.0 - j)) + np.log1p(-kj / (N - t))
-            x = logP + d * f
+        for _ in range(2):
+            x = logP + (d * f0 + (0.5 * d * (d - 1.0)) * f1)
             m = float(x.max())
             w = np.exp(x - m)
             sw = float(w.sum())
             h = m + math.log(sw / sP)
-            hp = float(w @ f) / sw
+            hp = float(w @ (f0 + (d - 0.5) * f1)) / sw
             if not (math.isfinite(h) and math.isfinite(hp) and hp < 0):
                 return None
             step = (h - target) / hp
