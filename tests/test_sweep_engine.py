@@ -127,6 +127,18 @@ def test_fixed_keeps_scenario_parameters(tmp_path):
     assert opt.rows[0]["parameters"]["p_x"] == 0.99
 
 
+def test_fixed_decoy_keeps_intensities_and_bias(tmp_path):
+    p = tmp_path / "decoy_fixed.toml"
+    p.write_text(DECOY_TOML.replace('name = "decoy-bb84"', 'name = "decoy-bb84"\nintensities = [0.6, 0.1, 0.0002]\n'
+                                    'intensity_probabilities = [0.9, 0.08, 0.02]\nkey_basis_probability = 0.9'))
+    proto = protocols.get("decoy-bb84")
+    t = run_sweep(load_scenario(p), ["link.distance_km=10"], mode="fixed", jobs=1, progress=False)
+    r = t.rows[0]
+    assert r["parameters"]["intensities"] == [0.6, 0.1, 0.0002]
+    assert r["parameters"]["key_basis_probability"] == 0.9
+    assert r["secret_key_length"] == _api_design(proto, p, {"link.distance_km": 10})["secret_key_length"]
+
+
 def test_fixed_without_free_parameters_is_an_input_error(bb84_file):
     with pytest.raises(InputError) as info:
         run_sweep(load_scenario(bb84_file), ["channel.qber=0.02"], mode="fixed", jobs=1)

@@ -114,7 +114,10 @@ class PointTask:
 
 #: How each protocol's own scenario fields switch the optimiser off: the fields that must be given (the free
 #: parameters) and the fields the sweep sets so that ``design`` evaluates instead of optimising.  A protocol
-#: that offers ``evaluate(scenario, statistics=None)`` is used directly instead.
+#: that offers ``evaluate(scenario, statistics=None)`` is used directly instead.  bb84: every choice is fixed
+#: (basis bias from design.p_x, epsilon split from design.smoothing_share).  decoy-bb84: intensities, their
+#: probabilities and the basis bias are fixed; the epsilon split is still chosen by the protocol's design,
+#: since its scenario has no field for it.
 FIXED_PARAMETER_FIELDS = {
     "bb84": (("design.p_x",), (("design.optimise_split", False),)),
     "decoy-bb84": (("protocol.intensities", "protocol.intensity_probabilities", "protocol.key_basis_probability"),
@@ -151,9 +154,9 @@ def fixed_evaluator(proto, data: dict | None = None):
     if data is not None:
         missing = [f for f in required if not _given(data, f)]
         if missing:
-            raise InputError("--fixed", ", ".join(missing),
-                             "a scenario that gives every free parameter of " + proto.name + " ("
-                             + ", ".join(required) + "); --fixed never runs the optimiser")
+            raise InputError("--fixed", proto.name,
+                             "a scenario file that gives the free parameters " + ", ".join(required)
+                             + " (missing: " + ", ".join(missing) + "); --fixed keeps them as given")
 
     def run(scenario, statistics):
         for name, value in settings:
