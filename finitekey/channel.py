@@ -227,8 +227,8 @@ class LinkModel:
         return det.dark_count_probability + det.misalignment_error * (1.0 - t) + 0.5 * det.afterpulse_probability * raw
 
     # ---- dead time ---------------------------------------------------------------------------
-    def live_fraction(self, mean_click_probability: float) -> float:
-        """Fraction of pulses for which the detectors are live, ``1 / (1 + f Dbar tau)``.
+    def live_fraction(self, mean_click_probability):
+        """Fraction of pulses for which the detectors are live, ``1 / (1 + f Dbar tau)`` (vectorised).
 
         Non-paralysable dead time ``tau`` after each click; ``f`` the repetition rate.  Without a rate or
         a dead time the fraction is 1.
@@ -236,8 +236,9 @@ class LinkModel:
         f = self.source.repetition_rate_hz
         tau = self.detector.dead_time_s
         if f is None or tau == 0.0:
-            return 1.0
-        return 1.0 / (1.0 + f * float(mean_click_probability) * tau)
+            return 1.0 if np.ndim(mean_click_probability) == 0 else np.ones(np.shape(mean_click_probability))
+        out = 1.0 / (1.0 + f * np.asarray(mean_click_probability, dtype=float) * tau)
+        return float(out) if out.ndim == 0 else out
 
     # ---- counts ------------------------------------------------------------------------------
     def expected_counts(self, pulses, intensities, probabilities, key_basis_probability) -> ExpectedCounts:

@@ -180,3 +180,13 @@ def test_fixed_parameters_are_respected():
     sc = _scenario(**{"protocol.key_basis_probability": 0.5})
     r = DD.design(sc)
     assert r.parameters["key_basis_probability"] == 0.5
+
+
+def test_dead_time_lowers_the_rate_and_is_reported():
+    # non-paralysable dead time (common practice, no source): fewer live pulses, so less key
+    base = DD.design(_scenario(L=10.0))
+    dead = DD.design(_scenario(L=10.0, **{"detector.dead_time_s": 1e-7}))
+    assert dead.expected_counts["live_fraction"] < 1.0
+    assert dead.expected.secret_key_length < base.expected.secret_key_length
+    # the float objective at the chosen point used the same live fraction as the reported counts
+    assert dead.parameters["float_objective_bits"] == pytest.approx(dead.expected.secret_key_length, rel=0.05)

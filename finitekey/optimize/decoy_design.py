@@ -148,10 +148,7 @@ class DesignProblem:
         N = sc.pulses
         d = model.click_probability(mu)
         e = model.error_probability(mu)
-        if model.detector.dead_time_s > 0 and model.source.repetition_rate_hz is not None:
-            live = 1.0 / (1.0 + model.source.repetition_rate_hz * (p * d).sum(axis=0) * model.detector.dead_time_s)
-        else:
-            live = 1.0
+        live = model.live_fraction((p * d).sum(axis=0))
         wx = N * p * (qx * qx * live)
         wz = N * p * ((1 - qx) ** 2 * live)
         kd, ke, td, te = wx * d, wx * e, wz * d, wz * e
