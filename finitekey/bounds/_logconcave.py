@@ -55,7 +55,7 @@ from flint import arb, ctx
 
 from ..errors import ComputationError
 
-__all__ = ["Binomial", "Hypergeometric", "log_cdf", "log_sf", "cdf_ball", "sf_ball", "lnbinom_arb",
+__all__ = ["Binomial", "Hypergeometric", "log_cdf", "log_sf", "cdf_ball", "cdf_ball_of_walk", "sf_ball", "lnbinom_arb",
            "MAX_POPULATION"]
 
 #: Largest population (number of trials) accepted: every integer met in a ratio stays exact in float64.

@@ -41,8 +41,18 @@ from ..compile import Enclosure
 from ..domains import Domain, Parameter
 from ..errors import ComputationError, InputError
 from ._base import EPS, Bound, Reference
-from ._logconcave import (MAX_POPULATION, Hypergeometric, _lgamma1, _walk, _Walk, cdf_ball, cdf_ball_of_walk,
-                          lnbinom_arb, log_cdf, tail_arb_reference)
+from ._logconcave import (
+    MAX_POPULATION,
+    Hypergeometric,
+    _lgamma1,
+    _Walk,
+    _walk,
+    cdf_ball,
+    cdf_ball_of_walk,
+    lnbinom_arb,
+    log_cdf,
+    tail_arb_reference,
+)
 from ._registry import register
 
 __all__ = ["HypergeometricSampling", "key_errors_upper", "key_errors_upper_certified", "hypergeometric_cdf",
@@ -108,7 +118,7 @@ class _SamplingTail:
             return ((_lgamma1(T) - self._lg_e - _lgamma1(T - e))
                     + (_lgamma1(N - T) - self._lg_ke - _lgamma1(N - T - k + e)) - self.log_norm)
 
-    def probe(self, T: int, light: bool = False) -> "_Probe | None":
+    def probe(self, T: int, light: bool = False) -> _Probe | None:
         """Float ``ln F(e; T)`` with its walk kept, or None where :func:`log_cdf` would not walk down
         from ``e`` (then the caller falls back to the plain search).
 
@@ -137,7 +147,7 @@ class _SamplingTail:
 class _Probe:
     """One evaluation of the tail at ``T``: family, start-term ball, kept float walk, float log tail."""
 
-    __slots__ = ("T", "fam", "log_start", "walk", "log_F")
+    __slots__ = ("T", "fam", "log_F", "log_start", "walk")
 
     def __init__(self, T: int, fam: Hypergeometric, log_start: arb, walk: _Walk, log_F: float):
         self.T, self.fam, self.log_start, self.walk, self.log_F = T, fam, log_start, walk, log_F
@@ -301,7 +311,7 @@ def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
     nxt = _predict(tail, first, log_eps)
     if nxt is None:
         return _search(tail, eps), None
-    c = int(min(max(math.floor(nxt), lo), hi - 1))
+    c = min(max(math.floor(nxt), lo), hi - 1)
     for _ in range(max_rounds):
         if not (known_lo <= c < known_hi - 1) or c + 1 >= hi:
             break
@@ -313,7 +323,7 @@ def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
             nxt = _predict(tail, pr, log_eps)
             if nxt is None:
                 break
-            c = max(int(math.floor(nxt)), c + 1)
+            c = max(math.floor(nxt), c + 1)
             continue
         known_hi = c + 1
         if c == e:
@@ -329,14 +339,14 @@ def _fast_search(tail: _SamplingTail, eps: float, max_rounds: int = 6):
                 nxt = _predict(tail, p0, log_eps)
                 if nxt is None:
                     break
-                c = min(int(math.floor(nxt)), c - 1)
+                c = min(math.floor(nxt), c - 1)
                 continue
         if g0 > 0:
             return c, pr
         nxt = _predict(tail, pr, log_eps)
         if nxt is None:
             break
-        c = min(int(math.floor(nxt)), c - 1)
+        c = min(math.floor(nxt), c - 1)
     return _search(tail, eps), None
 
 
