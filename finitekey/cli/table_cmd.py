@@ -77,7 +77,8 @@ def _args(p: argparse.ArgumentParser) -> None:
     mode.add_argument("--blocksize", metavar="TARGET", default=None,
                       help="tabulate the smallest block per point instead: 'positive', 'bits=N' or 'fraction=F'")
     p.add_argument("--format", choices=formats.FORMATS, default=None,
-                   help="csv, json (rows carry the full ledger), md or tex (default: from -o's extension, else md)")
+                   help="csv (provenance and caution in leading '#' lines; lists as a;b;c), json (rows carry the "
+                        "full ledger), md or tex (default: from -o's extension, else md)")
     p.add_argument("-o", "--output", default=None, help="output file (written atomically); default stdout")
 
 

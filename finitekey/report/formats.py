@@ -62,7 +62,7 @@ def short_number(x, digits: int = 4) -> str:
             return f"{x:.{digits - 1}e}"
         return f"{x:.{digits}g}"
     if isinstance(x, list):
-        return ";".join(short_number(v, digits) for v in x)
+        return ", ".join(short_number(v, digits) for v in x)
     return str(x)
 
 
