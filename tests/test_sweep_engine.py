@@ -277,3 +277,23 @@ def test_report_with_latex_fragment(bb84_file, tmp_path):
     assert hashlib.sha256(bb84_file.read_bytes()).hexdigest() in tex_text
     assert tex_text.count(r"\begin{tabular}") == 4  # result, ledger, sweep, block size
     assert r"\lfloor" in tex_text and tex_text.count(r"\begin{") == tex_text.count(r"\end{")
+
+
+def test_progress_bar_only_when_asked_or_on_a_terminal(bb84_file, capsys):
+    base = ["table", str(bb84_file), "--vary", "channel.qber=0.01,0.02", "--jobs", "1", "--format", "csv"]
+    assert main(base) == 0
+    assert capsys.readouterr().err == ""  # stderr is not a terminal under pytest: quiet
+    assert main([*base, "--progress"]) == 0
+    assert "2/2 points" in capsys.readouterr().err
+
+
+def test_interrupted_table_write_leaves_no_file(bb84_file, tmp_path, monkeypatch, capsys):
+    def interrupted(fd):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr("finitekey.files.os.fsync", interrupted)
+    dest = tmp_path / "out" / "t.csv"
+    dest.parent.mkdir()
+    assert main(["table", str(bb84_file), "--vary", "channel.qber=0.02", "--jobs", "1", "-o", str(dest)]) == 130
+    assert list(dest.parent.iterdir()) == []
+    assert "interrupted" in capsys.readouterr().err
