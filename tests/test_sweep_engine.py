@@ -82,6 +82,7 @@ def test_table_values_equal_api_values_bb84(bb84_file):
         want = _api_design(proto, bb84_file, r["point"])
         assert r["secret_key_length"] == want["secret_key_length"]
         assert r["secret_key_rate_per_pulse"] == want["secret_key_rate_per_signal"]
+        assert r["secret_key_rate_per_detection"] == want["secret_key_rate_per_detection"]
         assert r["secret_key_rate_bps"] == want["secret_key_rate_bps"]
         assert r["eps_total"] == want["expected"]["eps_total"]
         assert r["block_fill_time_s"] == want["block_fill_time_s"]

@@ -198,6 +198,7 @@ def _design_row(design) -> dict:
     return {
         "secret_key_length": int(d["secret_key_length"]),
         "secret_key_rate_per_pulse": _number(d["secret_key_rate_per_signal"]),
+        "secret_key_rate_per_detection": _number(d.get("secret_key_rate_per_detection")),
         "secret_key_rate_bps": _number(d.get("secret_key_rate_bps")),
         "parameters": flatten(d.get("parameters", {})),
         "eps_total": _number(d["expected"]["eps_total"]),
@@ -288,8 +289,10 @@ class SweepTable:
         if self.mode == "blocksize":
             cols += [("block_size", "block size", ""), ("block_size_kind", "block size unit", "")]
         cols += [("secret_key_length", "secret key length", "bit"),
-                 ("secret_key_rate_per_pulse", "key rate per pulse", "bit/pulse"),
-                 ("secret_key_rate_bps", "key rate per second", "bit/s")]
+                 ("secret_key_rate_per_pulse", "key rate per pulse", "bit/pulse")]
+        if any(r.get("secret_key_rate_per_detection") is not None for r in self.rows):
+            cols.append(("secret_key_rate_per_detection", "key rate per detection", "bit/detection"))
+        cols.append(("secret_key_rate_bps", "key rate per second", "bit/s"))
         cols += [(f"parameters.{p}", p, "") for p in self.parameter_names()]
         cols += [("eps_total", "total epsilon", ""), ("block_fill_time_s", "block fill time", "s")]
         if any(r.get("error") for r in self.rows):
