@@ -131,9 +131,17 @@ class _SamplingTail:
         e, k, N = self.e, self.k, self.N
         if not (fam.lo <= e < fam.hi and fam.mode_side(e) < 0):
             return None
-        # terms fall at least geometrically with the first ratio r: 45 / -ln r terms reach 2**-64
+        # size the first block of terms: ln P_i ~ -a i - b i^2 / 2 from the first two ratios, solved
+        # for ln P_L = -45 (about 2**-64), with 10% to spare; at most 45 / a (geometric decay)
         r = e * (N - T - k + e) / ((T - e + 1) * (k - e + 1)) if e > 0 else 0.0
-        first = int(45.0 / -math.log(r)) + 16 if 0.0 < r < 1.0 - 1e-9 else 16
+        if 0.0 < r < 1.0 - 1e-9:
+            a = -math.log(r)
+            r2 = (e - 1) * (N - T - k + e - 1) / ((T - e + 2) * (k - e + 2)) if e > 1 else 0.0
+            b = math.log(r / r2) if r2 > 0.0 else 0.0
+            length = 45.0 / a if b <= 1e-300 else min(45.0 / a, (math.sqrt(a * a + 90.0 * b) - a) / b)
+            first = int(1.1 * length) + 16
+        else:
+            first = 16
         w = _walk(fam, e, -1, keep=True, first_chunk=min(first, e - fam.lo + 1))
         if light:
             lg = math.lgamma
