@@ -366,3 +366,9 @@ def test_latex_compiles_when_a_tex_engine_exists(tmp_path):
                          capture_output=True, text=True, timeout=120, check=False)
     assert res.returncode == 0, res.stdout[-3000:]
     assert (tmp_path / "doc.pdf").read_bytes()[:5] == b"%PDF-"
+
+
+def test_latex_escape_handles_unicode_symbols():
+    out = formats.latex_escape("eta × 2 ≤ ε_s − 1, 50%")
+    assert out == r"eta \ensuremath{\times} 2 \ensuremath{\le} \ensuremath{\varepsilon}\_s - 1, 50\%"
+    assert all(ord(c) < 128 for c in out)

@@ -154,7 +154,11 @@ def _textual(table, i: int) -> bool:
 
 
 _TEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
-                "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}", "–": "--"}
+                "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}", "–": "--",
+                # characters plain pdflatex cannot typeset from UTF-8 text
+                "−": "-", "×": r"\ensuremath{\times}", "≤": r"\ensuremath{\le}", "≥": r"\ensuremath{\ge}",
+                "ε": r"\ensuremath{\varepsilon}", "η": r"\ensuremath{\eta}", "μ": r"\ensuremath{\mu}",
+                "µ": r"\ensuremath{\mu}", "’": "'", "“": "``", "”": "''", "·": r"\ensuremath{\cdot}"}
 
 
 def latex_escape(text) -> str:
