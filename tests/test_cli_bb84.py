@@ -106,16 +106,22 @@ def test_design_default_and_file(tmp_path, capsys):
     rc, out, _ = run(capsys, ["design", "--json"])
     assert rc == 0
     d = json.loads(out)
-    assert d["protocol"] == "bb84" and 0.5 < d["parameters"]["p_x"] < 1
+    from finitekey import protocols
+
+    # With no file, design runs the default protocol's built-in scenario.
+    assert d["protocol"] == protocols.DEFAULT_PROTOCOL
     assert d["secret_key_rate_per_pulse"] == d["secret_key_rate_per_signal"]
     assert d["expected"]["secret_key_length"] > 0
     toml = write(tmp_path, "s.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.03\n[budget]\n'
                                      'detections = 1e6\n[security]\neps_total = 1e-9\n')
     rc, out, _ = run(capsys, ["design", toml])
     assert rc == 0 and "p_x" in out and "bits per block" in out and CAUTION in out
+    rc, out, _ = run(capsys, ["design", toml, "--json"])
+    d = json.loads(out)
+    assert d["protocol"] == "bb84" and 0.5 < d["parameters"]["p_x"] < 1
     rc, _, err = run(capsys, ["design", toml, "--reach"])
     assert rc == 2 and "decoy-bb84" in err
-    bad = write(tmp_path, "bad.toml", '[channel]\nqber = 0.02\nlos = 3\n[budget]\ndetections = 1e6\n'
+    bad = write(tmp_path, "bad.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.02\nlos = 3\n[budget]\ndetections = 1e6\n'
                                       '[security]\neps_total = 1e-9\n')
     rc, _, err = run(capsys, ["design", bad])
     assert rc == 2 and "channel.los" in err
@@ -125,7 +131,7 @@ def test_design_default_and_file(tmp_path, capsys):
 
 
 def test_blocksize(tmp_path, capsys):
-    toml = write(tmp_path, "s.toml", '[channel]\nqber = 0.02\n[budget]\ndetections = 1e6\n'
+    toml = write(tmp_path, "s.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.02\n[budget]\ndetections = 1e6\n'
                                      '[security]\neps_sec = 1e-10\neps_cor = 1e-15\n')
     rc, out, _ = run(capsys, ["blocksize", toml, "--target", "bits=100000", "--json"])
     assert rc == 0
@@ -135,7 +141,7 @@ def test_blocksize(tmp_path, capsys):
     assert rc == 0 and "smallest block" in out and CAUTION in out
     rc, _, err = run(capsys, ["blocksize", toml, "--target", "lots"])
     assert rc == 2 and "target" in err
-    above = write(tmp_path, "a.toml", '[channel]\nqber = 0.2\n[budget]\ndetections = 1e6\n'
+    above = write(tmp_path, "a.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.2\n[budget]\ndetections = 1e6\n'
                                       '[security]\neps_sec = 1e-10\neps_cor = 1e-15\n')
     rc, _, err = run(capsys, ["blocksize", above, "--target", "positive"])
     assert rc == 2 and "channel.qber" in err

@@ -48,6 +48,11 @@ def main(argv=None) -> int:
     except ComputationError as exc:
         print(f"finitekey {args.command}: computation failed: {exc}", file=sys.stderr)
         return 3
+    except BrokenPipeError:  # output piped into a reader that stopped early (e.g. head)
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("finitekey: interrupted", file=sys.stderr)
         return 130

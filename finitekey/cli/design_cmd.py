@@ -24,7 +24,7 @@ def load_scenario(path):
     if path is None:
         proto = protocols.get(protocols.DEFAULT_PROTOCOL)
         return proto, proto.default_scenario()
-    return scenario_from_dict(read_toml(path), default_protocol=protocols.DEFAULT_PROTOCOL)
+    return scenario_from_dict(read_toml(path))
 
 
 def _args(p: argparse.ArgumentParser) -> None:
@@ -44,8 +44,23 @@ def _value(v):
     return fmt(v)
 
 
-def render_design(d) -> str:
-    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
+#: Design fields that are optimiser diagnostics, not free parameters: shown apart.
+_DIAGNOSTICS = {"float_objective_bits": ("optimiser objective (float estimate)", "bits per block")}
+
+
+def render_scenario(scenario: dict) -> str:
+    """One line per scenario section: ``[section] field=value, ...``."""
+    lines = []
+    for section, fields in scenario.items():
+        if isinstance(fields, dict):
+            lines.append(f"  [{section}] " + ", ".join(f"{k}={_value(v)}" for k, v in fields.items()))
+    return "\n".join(lines)
+
+
+def render_design(d, source: str | None = None) -> str:
+    head = [f"Scenario ({source or 'built-in default scenario'}):", render_scenario(d.scenario), ""] \
+        if getattr(d, "scenario", None) else []
+    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items() if k not in _DIAGNOSTICS]
     rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
              for k, v in d.expected_counts.items()]
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
@@ -58,7 +73,10 @@ def render_design(d) -> str:
         rows.append(["secret key rate", fmt(d.secret_key_rate_bps), "bits per second"])
     if d.block_fill_time_s is not None:
         rows.append(["block fill time", fmt(d.block_fill_time_s), "s"])
-    return "\n".join([f"Design ({d.protocol}, statistics {d.expected.statistics})",
+    for k, (label, unit) in _DIAGNOSTICS.items():
+        if k in d.parameters:
+            rows.append([label, fmt(d.parameters[k]), unit])
+    return "\n".join(head + [f"Design ({d.protocol}, statistics {d.expected.statistics})",
                       table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
                       render_ledger(d.expected.ledger)])
 
@@ -80,7 +98,7 @@ def _run(args) -> int:
     if args.json:
         print(to_json(d.to_dict()))
         return 0
-    print(render_design(d))
+    print(render_design(d, args.scenario))
     print("\n" + caution_block())
     return 0
 

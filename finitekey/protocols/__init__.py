@@ -16,7 +16,7 @@ __all__ = ["register", "get", "names", "all_protocols", "KeyLengthResult", "Desi
            "BlockTargetKind", "BlockSizeResult", "DEFAULT_PROTOCOL"]
 
 #: Protocol whose default scenario ``finitekey design`` uses when no file is given.
-DEFAULT_PROTOCOL = "bb84"
+DEFAULT_PROTOCOL = "decoy-bb84"
 
 from . import bb84  # noqa: E402,F401  (each import registers its protocol)
 from . import decoy_bb84  # noqa: E402,F401

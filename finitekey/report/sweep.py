@@ -93,7 +93,7 @@ def load_scenario(path) -> LoadedScenario:
         For a missing file, bad TOML, an unknown protocol or an invalid scenario.
     """
     data = read_toml(path)
-    proto, _ = scenario_from_dict(data, protocols.DEFAULT_PROTOCOL)  # validates now, before workers start
+    proto, _ = scenario_from_dict(data)  # validates now, before workers start
     name = proto.name
     digest = hashlib.sha256(Path(path).read_bytes()).hexdigest()
     return LoadedScenario(protocol=name, data=data, path=str(path), sha256=digest)
