@@ -8,7 +8,9 @@ Dask (``dask[distributed]``, the optional extra ``cluster``) is imported only
 when a cluster is asked for.  ``cluster="local"`` starts a
 ``distributed.LocalCluster`` bound to 127.0.0.1 with the dashboard switched
 off, and its worker processes are forked (on POSIX) so that they inherit the
-imported package; any other string is the address of a running scheduler.
+imported package; any other string is the address of a running scheduler, whose
+workers must have the same finitekey version installed (tasks name the protocol
+and carry the scenario as plain data, not code).
 
 References
 ----------
