@@ -37,7 +37,6 @@ References
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -50,8 +49,16 @@ from .domains import COUNT, Domain
 from .entropy import binary_entropy_expr, log2_expr
 from .errors import InputError
 
-__all__ = ["LeakageModel", "DisclosedLeakage", "FixedEfficiency", "SecondOrderLeakage", "leakage_model",
-           "MODEL_NAMES", "QBER_DOMAIN", "EFFICIENCY_DOMAIN"]
+__all__ = [
+    "EFFICIENCY_DOMAIN",
+    "MODEL_NAMES",
+    "QBER_DOMAIN",
+    "DisclosedLeakage",
+    "FixedEfficiency",
+    "LeakageModel",
+    "SecondOrderLeakage",
+    "leakage_model",
+]
 
 #: Quantum bit error rates for which reconciliation (and a key) is meaningful: [0, 1/2).
 QBER_DOMAIN = Domain(0.0, 0.5, upper_open=True)
@@ -72,7 +79,9 @@ def _ceil_upper(ball: arb) -> int:
     """Smallest integer certainly >= every point of the ball."""
     if not ball.is_finite():
         raise InputError("ec leakage", str(ball), "a finite leakage")
-    return int(math.ceil(float(ball.upper()))) + 0
+    # Round in ball arithmetic: float(ball.upper()) rounds to nearest and may land below the ball's
+    # upper end when the ball carries more than 53 bits.
+    return int(ball.upper().ceil().unique_fmpz())
 
 
 class LeakageModel:

@@ -501,3 +501,16 @@ def test_phase_error_bound_monte_carlo_large(make_rng):
         bounds = {int(v): key_errors_upper(n, k, int(v), eps) for v in np.unique(e)}
         fails = sum((T - int(v)) > bounds[int(v)] for v in e)
         assert fails <= eps * e.size + 4 * math.sqrt(eps * e.size)
+
+
+def test_modelled_leakage_is_flagged_in_the_assumptions():
+    # A run-time block whose leakage is modelled from an efficiency, not measured, must say so in its result
+    # (a key that is secure only if reconciliation disclosed no more than the model's bits).
+    from finitekey.protocols import bb84 as mod
+
+    base = {"key_bits": 10**6, "test_bits": 10**5, "test_errors": 5000, "eps_sec": 1e-10, "eps_cor": 1e-15}
+    measured = mod.key_length(mod.parse_block({**base, "ec_leak_bits": 300000}))
+    modelled = mod.key_length(mod.parse_block({**base, "ec_efficiency": 1.1, "key_qber": 0.05}))
+    assert mod.MODELLED_LEAKAGE_ASSUMPTION not in measured.assumptions
+    assert mod.MODELLED_LEAKAGE_ASSUMPTION in modelled.assumptions
+    assert "MODELLED" in " ".join(modelled.to_dict()["assumptions"])

@@ -120,6 +120,16 @@ ASSUMPTIONS = (
     "error verification with a two-universal hash of ceil(log2(1/eps_cor)) bits, counted as leakage",
     "privacy amplification with two-universal hashing",
 )
+#: Added to the assumptions when a block gives ec_efficiency and key_qber instead of the disclosed bit count.
+MODELLED_LEAKAGE_ASSUMPTION = (
+    "leakage is MODELLED as ceil(ec_efficiency * n * h(key_qber)), not measured: the length is secure only if "
+    "reconciliation disclosed at most that many bits (give ec_leak_bits at run time)")
+
+
+def _assumptions(leakage) -> tuple:
+    return ASSUMPTIONS if isinstance(leakage, DisclosedLeakage) else ASSUMPTIONS + (MODELLED_LEAKAGE_ASSUMPTION,)
+
+
 REFERENCES = (
     "M. Tomamichel, C. C. W. Lim, N. Gisin, R. Renner, Nat. Commun. 3, 634 (2012) doi:10.1038/ncomms1631",
     "M. Tomamichel and R. Renner, Phys. Rev. Lett. 106, 110506 (2011) doi:10.1103/PhysRevLett.106.110506",
@@ -435,8 +445,8 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
         terms["key_length_lower_bound"] = float(ball.lower())
     if not usable:
         estimates["note_phase_error_at_least_half"] = 1.0
-    return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, ASSUMPTIONS, terms, estimates,
-                           FORMULA_LATEX, REFERENCES)
+    return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, _assumptions(block.leakage), terms,
+                           estimates, FORMULA_LATEX, REFERENCES)
 
 
 def key_length_batch(blocks, statistics=None, *, prec: int = 128) -> list:
