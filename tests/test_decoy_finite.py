@@ -171,3 +171,18 @@ def test_bad_blocks_name_the_field():
     assert _bad(lambda d: d.__setitem__("ec_leak_bits", -3)) == "ec_leak_bits"
     assert _bad(lambda d: d.__setitem__("colour", "blue")) == "colour"
     assert _bad(lambda d: d.__setitem__("protocol", "bb84")) == "protocol"
+
+
+def test_block_label_is_carried():
+    # A post-processing stack tags each block; the label must be accepted and kept, and must be text.
+    import json
+    from pathlib import Path
+
+    from finitekey import protocols
+    from finitekey.errors import InputError
+
+    proto = protocols.get("decoy-bb84")
+    data = json.loads((Path(__file__).parent.parent / "examples" / "blocks" / "decoy_block.json").read_text())
+    assert proto.parse_block(data).label == data["label"]
+    with pytest.raises(InputError, match="label"):
+        proto.parse_block({**data, "label": 7})

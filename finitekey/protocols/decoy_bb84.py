@@ -93,7 +93,8 @@ ASSUMPTIONS = (
     "each to eps_sec (see the proof note for what this assumes about conditioning on acceptance)",
     "the single-photon key and test detections form a uniformly random split of all single-photon detections "
     "(basis chosen independently of the photon number and of the adversary)",
-    "ec_leak_bits is the total number of bits disclosed by error correction",
+    "ec_leak_bits bounds what error correction can disclose: for interactive or rate-adaptive codes, the "
+    "maximum over all runs, not the count of one run (proofs_notes/reconciliation.md)",
 )
 
 _SHARE = Domain(0.0, 1.0, lower_open=True, upper_open=True)
@@ -173,6 +174,7 @@ class DecoyBlock:
     eps_sec: float
     eps_cor: float
     epsilon_split: dict | None = None
+    label: str | None = None
 
     def as_dict(self) -> dict:
         d = {"protocol": PROTOCOL_NAME, "intensities": list(self.intensities),
@@ -186,7 +188,7 @@ class DecoyBlock:
 
 
 _BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
-                 "eps_sec", "eps_cor", "epsilon_split")
+                 "eps_sec", "eps_cor", "epsilon_split", "label")
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -259,7 +261,10 @@ def parse_block(data: dict) -> DecoyBlock:
     split = data.get("epsilon_split")
     if split is not None:
         split = _check_split(split)
-    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split)
+    label = data.get("label")
+    if label is not None and not isinstance(label, str):
+        raise InputError("label", label, "a text identifier of the block")
+    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split, label)
 
 
 def _check_split(split) -> dict:
