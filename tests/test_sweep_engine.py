@@ -298,3 +298,11 @@ def test_interrupted_table_write_leaves_no_file(bb84_file, tmp_path, monkeypatch
     assert main(["table", str(bb84_file), "--vary", "channel.qber=0.02", "--jobs", "1", "-o", str(dest)]) == 130
     assert list(dest.parent.iterdir()) == []
     assert "interrupted" in capsys.readouterr().err
+
+
+def test_scenario_must_name_its_protocol(tmp_path, capsys):
+    p = tmp_path / "anonymous.toml"
+    p.write_text(BB84_TOML.replace('[protocol]\nname = "bb84"\n', "[protocol]\n"))
+    assert main(["table", str(p), "--vary", "channel.qber=0.02"]) == 2
+    err = capsys.readouterr().err
+    assert "protocol.name" in err and "bb84" in err and "decoy-bb84" in err

@@ -82,10 +82,9 @@ class LoadedScenario:
 def load_scenario(path) -> LoadedScenario:
     """Read and validate a scenario TOML file.
 
-    The protocol is named by the ``[protocol]`` section's ``name`` (default
-    :data:`finitekey.protocols.DEFAULT_PROTOCOL`, as for ``finitekey design``);
-    the whole file is validated by that protocol's ``parse_scenario`` before any
-    sweep starts.
+    The protocol is named by the ``[protocol]`` section's ``name`` (required,
+    as for ``finitekey design``); the whole file is validated by that
+    protocol's ``parse_scenario`` before any sweep starts.
 
     Raises
     ------
