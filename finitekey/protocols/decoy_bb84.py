@@ -323,9 +323,10 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
         kl, kh = _intervals(method, block.key_detections, eps_c, prec)
         tl, th = _intervals(method, block.test_detections, eps_c, prec)
         el, eh = _intervals(method, block.test_errors, eps_c, prec)
+        s0u = s0zu = None
         if analysis == "three-intensity":
             s0, s1 = A.three_intensity(mu, p, kl, kh, exp)
-            _, s1z = A.three_intensity(mu, p, tl, th, exp)
+            s0z, s1z = A.three_intensity(mu, p, tl, th, exp)
             v1 = A.three_intensity_errors(mu, p, el, eh, exp)
         elif analysis == "two-intensity":
             kel, keh = _intervals(method, block.key_errors, eps_c, prec)
@@ -334,13 +335,50 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
             s0u = A.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
             s0, s1 = A.two_intensity(mu, p, kl, kh, s0u, exp)
             s0zu = A.two_intensity_vacuum_upper(mu, p, eh[1], vac_test, exp)
-            _, s1z = A.two_intensity(mu, p, tl, th, s0zu, exp)
+            s0z, s1z = A.two_intensity(mu, p, tl, th, s0zu, exp)
             v1 = A.two_intensity_errors(mu, p, el, eh, exp)
         else:
             from . import _decoy_lp
             return _decoy_lp.estimates(block, method, eps_c)
-        return {"s0": A.lower_end(A.clip0(s0)), "s1": A.lower_end(s1), "s1z": A.lower_end(s1z),
-                "v1": A.upper_end(v1)}
+        out = {"s0": A.lower_end(A.clip0(s0)), "s1": A.lower_end(s1), "s1z": A.lower_end(s1z),
+               "v1": A.upper_end(v1), "s0z": A.lower_end(A.clip0(s0z))}
+        if s0u is not None:
+            out["s0_upper"] = A.upper_end(s0u)
+            out["s0z_upper"] = A.upper_end(s0zu)
+        return out
+
+
+def _physical_check(block: DecoyBlock, est: dict) -> tuple:
+    """Clamp upper bounds to their physical maxima and test the lower bounds against the observed totals.
+
+    Under the good events every bound holds for the true counts, and the true counts obey
+    ``s0 + s1 <= n_X`` (key-basis detections summed over intensities), ``s0Z + s1Z <= n_Z``,
+    ``0 <= v1 <= m_Z`` (test-basis errors summed) and, with two intensities, ``s0 <= s0_upper``.  Bounds
+    that violate one of these show that the block cannot come from the decoy model (or a good event
+    failed): no key may be extracted.  Upper bounds are clamped to the physical maximum (``v1 <= m_Z``),
+    which keeps them valid; lower bounds are never raised.
+
+    Returns
+    -------
+    (est, violations) : the estimates with ``v1`` clamped, and the list of violated constraints (names).
+    """
+    n_x, n_z, m_z = sum(block.key_detections), sum(block.test_detections), sum(block.test_errors)
+    pos = lambda x: max(A.floor_arb(x), 0.0)  # noqa: E731  (a lower bound on a non-negative count)
+    bad = []
+    if pos(est["s0"]) + pos(est["s1"]) > n_x:
+        bad.append("s0_lower + s1_lower > key-basis detections")
+    if "s0z" in est and pos(est["s0z"]) + pos(est["s1z"]) > n_z or pos(est["s1z"]) > n_z:
+        bad.append("s0_test_lower + s1_test_lower > test-basis detections")
+    if A.ceil_arb(est["v1"]) < 0:
+        bad.append("e1_test_errors_upper < 0")
+    if "s0_upper" in est and (A.floor_arb(est["s0"]) > A.ceil_arb(est["s0_upper"])
+                              or A.floor_arb(est["s0z"]) > A.ceil_arb(est["s0z_upper"])):
+        bad.append("vacuum lower bound above the vacuum upper bound")
+    est = dict(est)
+    est["v1_formula"] = est["v1"]
+    if A.ceil_arb(est["v1"]) > m_z:
+        est["v1"] = arb(m_z)
+    return est, bad
 
 
 def _vacuum_deviation(method: str, n_detections: int, eps: float) -> arb:
@@ -416,6 +454,9 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     eps_ch = ledger.epsilon("chain_rule")
     eps_pa = ledger.epsilon("privacy_amplification")
     est = _estimates_certified(block, method, analysis, eps_c, prec)
+    est, violations = _physical_check(block, est)
+    if violations:
+        return _inconsistent_result(block, method, analysis, ledger, est, violations)
     phi, extra = _phase_error(method, est, eps_p, prec)
     with ctx.workprec(prec):
         s0 = est["s0"]
@@ -436,11 +477,24 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
              "key_length_lower_bound": A.floor_arb(total)}
     estimates = {"s0_lower": A.floor_arb(est["s0"]), "s1_lower": A.floor_arb(est["s1"]),
                  "s1_test_lower": A.floor_arb(est["s1z"]), "e1_test_errors_upper": A.ceil_arb(est["v1"]),
+                 "e1_test_errors_upper_formula": A.ceil_arb(est["v1_formula"]),
                  "phase_error_upper": A.ceil_arb(phi), **extra}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
         assumptions=ASSUMPTIONS + (f"analysis: {analysis}",), terms=terms, estimates=estimates, formula=FORMULA,
         references=REFERENCES)
+
+
+def _inconsistent_result(block, method, analysis, ledger, est, violations) -> KeyLengthResult:
+    """Zero key for a block whose decoy bounds contradict its own totals (see :func:`_physical_check`)."""
+    estimates = {"s0_lower": A.floor_arb(est["s0"]), "s1_lower": A.floor_arb(est["s1"]),
+                 "s1_test_lower": A.floor_arb(est["s1z"]), "e1_test_errors_upper": A.ceil_arb(est["v1"]),
+                 "phase_error_upper": 0.5, "note_block_inconsistent_with_decoy_model": 1.0}
+    return KeyLengthResult(
+        protocol=PROTOCOL_NAME, secret_key_length=0, ledger=ledger, statistics=method,
+        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",
+                                   "block rejected, inconsistent with the decoy model: " + "; ".join(violations)),
+        terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA, references=REFERENCES)
 
 
 def _check_statistics(statistics):
