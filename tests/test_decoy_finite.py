@@ -62,10 +62,15 @@ def _lim2014_reference(b):
     c, d = s1z, s1x
     gamma = mpmath.sqrt((c + d) * (1 - lam) * lam / (c * d * mpmath.log(2))
                         * mpmath.log((c + d) / (c * d * (1 - lam) * lam) * (21 / es) ** 2, 2))
-    phi = lam + gamma
+    # gamma alone is not a valid bound (it tends to 0 with lam); the phase term is max(gamma, mu) with mu the
+    # random-sampling (Serfling) deviation exp(-2 mu^2 n k^2 / ((n+k)(k+1))) = eps of Tomamichel, Lim, Gisin,
+    # Renner, Nat. Commun. 3, 634 (2012), at n = ceil(s1), k = ceil(s1z) key/test bits
+    n, k = mpmath.ceil(s1x), mpmath.ceil(s1z)
+    mu_rig = mpmath.sqrt((n + k) * (k + 1) * mpmath.log(21 / es) / (2 * n * k ** 2))
+    phi = lam + max(gamma, mu_rig)
     h = -phi * mpmath.log(phi, 2) - (1 - phi) * mpmath.log(1 - phi, 2)
     ell = (s0x + s1x - s1x * h - b.ec_leak_bits - 6 * mpmath.log(21 / es, 2) - mpmath.log(2 / mpmath.mpf(b.eps_cor), 2))
-    return {"s0": s0x, "s1": s1x, "s1z": s1z, "v1": v1z, "phi": phi, "ell": ell}
+    return {"s0": s0x, "s1": s1x, "s1z": s1z, "v1": v1z, "phi": phi, "ell": ell, "gamma": gamma, "mu": mu_rig}
 
 
 @pytest.mark.parametrize("L,N", [(20.0, 1e9), (50.0, 1e10), (80.0, 1e11), (100.0, 1e12)])
@@ -81,6 +86,9 @@ def test_hoeffding_reproduces_2014_formulas_term_by_term(L, N):
     assert e["e1_test_errors_upper_formula"] == pytest.approx(float(ref["v1"]), rel=1e-10)
     # the bound used is clamped to the observed test errors (v1 <= m_Z), which keeps it valid
     assert e["e1_test_errors_upper"] == pytest.approx(min(float(ref["v1"]), sum(b.test_errors)), rel=1e-10)
+    assert e["sampling_term_2014_gamma"] == pytest.approx(float(ref["gamma"]), rel=1e-10)
+    assert e["sampling_term_rigorous_mu"] == pytest.approx(float(ref["mu"]), rel=1e-10)
+    assert e["sampling_term_rigorous_mu"] >= float(ref["mu"]) * (1 - 1e-15)
     assert e["phase_error_upper"] == pytest.approx(float(ref["phi"]), rel=1e-10)
     assert e["phase_error_upper"] >= float(ref["phi"]) * (1 - 1e-15)
     assert e["s0_lower"] == pytest.approx(float(ref["s0"]), rel=1e-9, abs=1e-9)

@@ -189,7 +189,10 @@ class DesignProblem:
         lam = np.clip(v1 / s1z_safe, 1e-12, 0.5)
         if meth == "hoeffding":
             g2 = A.sampling_gamma(eps_p, lam, s1z_safe, s1_safe, np.log)
-            phi = lam + np.sqrt(np.maximum(g2, 0.0))
+            # as in the certified evaluation: max(gamma_2014, mu) with mu the random-sampling deviation
+            # (finitekey.bounds.random_sampling), continued to real counts
+            mu = A.random_sampling_deviation_float(s1_safe, s1z_safe, eps_p)
+            phi = lam + np.maximum(np.sqrt(np.maximum(g2, 0.0)), mu)
         else:
             # rigorous Chernoff-Hoeffding stand-in for the exact hypergeometric bound of the final evaluation
             phi = A.sampling_kl_rate_float(lam, s1_safe, np.maximum(s1z, 1e-3), eps_p)

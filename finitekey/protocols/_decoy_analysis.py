@@ -227,6 +227,17 @@ def sampling_gamma(eps, lam, n_test, n_key, log):
     return val
 
 
+def random_sampling_deviation_float(n_key, n_test, eps):
+    """Float continuation to real counts of the random-sampling deviation (design surrogate only).
+
+    The inverse of ``eps = exp(-2 mu^2 n k^2 / ((n+k)(k+1)))`` of ``finitekey.bounds.random_sampling``
+    (Tomamichel et al. 2012), which accepts integer counts only; the certified key length uses that bound.
+    """
+    n = np.asarray(n_key, dtype=float)
+    k = np.asarray(n_test, dtype=float)
+    return np.sqrt((n + k) * (k + 1) * np.log(1.0 / np.asarray(eps, dtype=float)) / (2 * n * k * k))
+
+
 def sampling_kl_rate_float(lam, n_key, n_test, eps, iterations: int = 12):
     """Float upper bound on the error rate of ``n_key`` bits given rate ``lam`` on ``n_test`` bits sampled
     without replacement from the ``n_key + n_test`` (vectorised; used as the design surrogate).

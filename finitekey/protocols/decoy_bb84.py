@@ -22,8 +22,10 @@ Statistics (``statistics=``):
   non-identical Bernoulli trials by Hoeffding's 1956 domination, and the exact hypergeometric bound on the
   phase errors (finitekey.bounds.hypergeometric_exact), with an optimisable epsilon split;
 * ``"chernoff"``: multiplicative Chernoff intervals on the counts, exact hypergeometric phase errors;
-* ``"hoeffding"``: the 2014 reference: Hoeffding intervals ``n_k -/+ sqrt(n/2 ln(21/eps_sec))`` and the
-  Serfling-type sampling term ``gamma``, every epsilon ``eps_sec/21``.
+* ``"hoeffding"``: the 2014 reference: Hoeffding intervals ``n_k -/+ sqrt(n/2 ln(21/eps_sec))``, every
+  epsilon ``eps_sec/21``, and the phase-error term ``max(gamma_2014, mu)``: the 2014 sampling term
+  ``gamma`` is not a valid bound on its own (it tends to 0 with the test error rate), so it is kept only
+  where it exceeds the rigorous random-sampling (Serfling) deviation ``mu`` at the same epsilon.
 
 Analyses by intensity count: 3 intensities with ``mu1 > mu2 + mu3`` use the closed form of Lim et al.;
 2 intensities the one-decoy closed form of Rusca et al. (vacuum bounded from error counts); any other count
@@ -390,23 +392,40 @@ def _vacuum_deviation(method: str, n_detections: int, eps: float) -> arb:
     return (arb(n_detections) / 2 * (1 / arb(eps)).log()).sqrt()
 
 
+def _phase_error_hoeffding(s1: arb, s1z: arb, v1: arb, eps_p: float, prec: int):
+    """Phase-error rate for ``statistics="hoeffding"``: ``lambda + max(gamma_2014, mu_rigorous)``.
+
+    ``gamma_2014`` is the 2014 sampling term (kept so the reference is reproduced where it is at least as
+    conservative); it is not a valid bound on its own (it tends to 0 with the test error rate).
+    ``mu_rigorous`` is the random-sampling (Serfling) deviation of ``finitekey.bounds.random_sampling`` at
+    the same epsilon, evaluated at ``n = ceil(s1_L)`` key and ``k = ceil(s1z_L)`` test bits; it decreases
+    in both, so plugging in lower bounds keeps it valid (proof note, section 6).
+    """
+    from ..bounds import get as _get_bound  # bounds sit below protocols
+    with ctx.workprec(prec):
+        lam = arb(max(A.ceil_arb(v1 / s1z), 0.0))      # upper end of v1_U / s1z_L
+        if lam >= arb(0.5):
+            return arb(0.5), {"single_photon_error_rate_test_upper": 0.5}
+        g2 = A.sampling_gamma(arb(eps_p), lam if lam > 0 else arb(1e-300), s1z, s1, lambda x: x.log())
+        g2u = A.ceil_arb(g2)                          # upper end: gamma is an upper-bound quantity
+        gamma = arb(A.ceil_arb(arb(g2u).sqrt())) if g2u > 0 else arb(0)
+        n = int(math.ceil(A.floor_arb(s1)))
+        k = int(math.ceil(A.floor_arb(s1z)))
+        mu = _get_bound("random_sampling").deviation_certified(eps_p, prec, key_bits=n, test_bits=k).hi
+        phi = lam + (gamma if gamma >= arb(mu) else arb(mu))
+    phi_u = A.ceil_arb(phi)
+    return arb(min(phi_u, 0.5)), {"single_photon_error_rate_test_upper": A.ceil_arb(lam),
+                                  "sampling_term_2014_gamma": A.ceil_arb(gamma),
+                                  "sampling_term_rigorous_mu": float(mu)}
+
+
 def _phase_error(method: str, est: dict, eps_p: float, prec: int):
     """Upper bound on the single-photon phase-error rate of the key, as an exact arb ball (or 1/2 cap)."""
     s1, s1z, v1 = est["s1"], est["s1z"], est["v1"]
     if not (s1 > 0 and s1z > 0):
         return arb(0.5), {}
     if method == "hoeffding":
-        with ctx.workprec(prec):
-            lam = A.clip0(v1 / s1z)
-            lam = A.upper_end(lam)
-            if not lam > 0:
-                lam = arb(1e-300)
-            if lam >= arb(0.5):
-                return arb(0.5), {"single_photon_error_rate_test_upper": 0.5}
-            g2 = A.sampling_gamma(arb(eps_p), lam, s1z, s1, lambda x: x.log())
-            phi = lam + (A.clip0(g2)).sqrt()
-        phi_u = A.ceil_arb(phi)
-        return arb(min(phi_u, 0.5)), {"single_photon_error_rate_test_upper": A.ceil_arb(lam)}
+        return _phase_error_hoeffding(s1, s1z, v1, eps_p, prec)
     # s1 is a lower bound on an integer count, so the count is at least ceil(s1); the bound uses ceil.
     n = int(math.ceil(A.floor_arb(s1)))
     k = int(math.ceil(A.floor_arb(s1z)))
