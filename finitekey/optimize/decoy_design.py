@@ -15,8 +15,8 @@ from the expected number of detections (few detections: more test basis and deco
 with a batched forward-difference gradient, and the best point is then evaluated by the certified analysis
 (:func:`finitekey.protocols.decoy_bb84.key_length`) at the rounded expected counts; only that certified
 length is reported.  For the ``exact`` and ``chernoff`` statistics the float objective bounds the phase error
-with the Chernoff-Hoeffding relative-entropy bound for sampling without replacement (a rigorous, smooth and
-slightly looser stand-in for the exact hypergeometric bound used in the final evaluation).
+with the Chernoff-Hoeffding relative-entropy bound for sampling without replacement (the smooth float form
+of the bound the final evaluation certifies, taking the test count's upper bound equal to its lower bound).
 
 References
 ----------
@@ -184,6 +184,7 @@ class DesignProblem:
         # the float path against rounding garbage.
         s0, s1 = np.minimum(s0, kdt), np.minimum(s1, kdt)
         s1z = np.minimum(s1z, tdt)
+        v1 = np.minimum(v1, tet)   # single-photon test errors are a part of all test errors (as certified)
         s1z_safe = np.maximum(s1z, 1.0)
         s1_safe = np.maximum(s1, 1.0)
         lam = np.clip(v1 / s1z_safe, 1e-12, 0.5)
@@ -194,7 +195,7 @@ class DesignProblem:
             mu = A.random_sampling_deviation_float(s1_safe, s1z_safe, eps_p)
             phi = lam + np.maximum(np.sqrt(np.maximum(g2, 0.0)), mu)
         else:
-            # rigorous Chernoff-Hoeffding stand-in for the exact hypergeometric bound of the final evaluation
+            # float form of the Chernoff-Hoeffding bound of the final evaluation (with K_U = k_L)
             phi = A.sampling_kl_rate_float(lam, s1_safe, np.maximum(s1z, 1e-3), eps_p)
         h = A.binary_entropy_float(np.minimum(phi, 0.5)) + 4.0 * np.maximum(phi - 0.5, 0.0)
         qber = np.clip(ke.sum(axis=0) / kdt, 1e-15, 0.5)

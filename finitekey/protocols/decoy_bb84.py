@@ -19,9 +19,10 @@ which with every epsilon equal to ``eps_sec/21`` is the 2014 formula
 Statistics (``statistics=``):
 
 * ``"exact"`` (default): exact binomial (Clopper-Pearson) intervals on the counts per intensity, valid for
-  non-identical Bernoulli trials by Hoeffding's 1956 domination, and the exact hypergeometric bound on the
-  phase errors (finitekey.bounds.hypergeometric_exact), with an optimisable epsilon split;
-* ``"chernoff"``: multiplicative Chernoff intervals on the counts, exact hypergeometric phase errors;
+  non-identical Bernoulli trials by Hoeffding's 1956 domination, and a Chernoff-Hoeffding bound on the
+  phase errors that is monotone in the single-photon counts (so their bounds may be plugged in; the exact
+  hypergeometric bound is not), with an optimisable epsilon split;
+* ``"chernoff"``: multiplicative Chernoff intervals on the counts, the same phase-error bound;
 * ``"hoeffding"``: the 2014 reference: Hoeffding intervals ``n_k -/+ sqrt(n/2 ln(21/eps_sec))``, every
   epsilon ``eps_sec/21``, and the phase-error term ``max(gamma_2014, mu)``: the 2014 sampling term
   ``gamma`` is not a valid bound on its own (it tends to 0 with the test error rate), so it is kept only
@@ -55,7 +56,6 @@ import numpy as np
 from flint import arb, ctx
 from scipy import optimize as _opt
 
-from ..bounds.hypergeometric_exact import key_errors_upper_certified
 from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
@@ -365,7 +365,9 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
     (est, violations) : the estimates with ``v1`` clamped, and the list of violated constraints (names).
     """
     n_x, n_z, m_z = sum(block.key_detections), sum(block.test_detections), sum(block.test_errors)
-    pos = lambda x: max(A.floor_arb(x), 0.0)  # noqa: E731  (a lower bound on a non-negative count)
+    def pos(x):  # a lower bound on a non-negative count, as a float
+        return max(A.floor_arb(x), 0.0)
+
     bad = []
     if pos(est["s0"]) + pos(est["s1"]) > n_x:
         bad.append("s0_lower + s1_lower > key-basis detections")
@@ -377,6 +379,9 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
                               or A.floor_arb(est["s0z"]) > A.ceil_arb(est["s0z_upper"])):
         bad.append("vacuum lower bound above the vacuum upper bound")
     est = dict(est)
+    # the single-photon test detections are at most n_Z minus the vacuum test detections
+    # (both integers, so K <= n_Z - ceil(s0Z_L))
+    est["k_upper"] = n_z - int(math.ceil(pos(est["s0z"]))) if "s0z" in est else n_z
     est["v1_formula"] = est["v1"]
     if A.ceil_arb(est["v1"]) > m_z:
         est["v1"] = arb(m_z)
@@ -426,18 +431,21 @@ def _phase_error(method: str, est: dict, eps_p: float, prec: int):
         return arb(0.5), {}
     if method == "hoeffding":
         return _phase_error_hoeffding(s1, s1z, v1, eps_p, prec)
-    # s1 is a lower bound on an integer count, so the count is at least ceil(s1); the bound uses ceil.
+    # Lower bounds on integer counts: the count is at least the ceiling; upper bounds: at most the floor.
     n = int(math.ceil(A.floor_arb(s1)))
     k = int(math.ceil(A.floor_arb(s1z)))
-    e = int(math.floor(A.ceil_arb(v1))) if v1 > 0 else 0
-    e = min(max(e, 0), k)
+    e = max(int(math.floor(A.ceil_arb(v1))), 0)
+    k_hi = est.get("k_upper")
+    k_hi = k if k_hi is None else max(int(k_hi), k)
     if n < 1 or k < 1:
         return arb(0.5), {}
-    t = key_errors_upper_certified(n, k, e, eps_p, prec)
-    phi = arb(t) / arb(n)
-    return (arb(0.5) if phi >= arb(0.5) else arb(A.ceil_arb(phi))), {
-        "single_photon_key_count": float(n), "single_photon_test_count": float(k),
-        "single_photon_test_errors_upper": float(e), "single_photon_key_phase_errors_upper": float(t)}
+    # The exact hypergeometric bound x(N)/N is not monotone in N (x steps by 1), so it cannot take the
+    # lower bound s1_L in place of the unknown N; the Chernoff-Hoeffding form is monotone (proof note, sec. 6).
+    phi, p1, _ = A.kl_key_rate_upper(n, k, k_hi, e, eps_p, prec)
+    extra = {"single_photon_key_count": float(n), "single_photon_test_count": float(k),
+             "single_photon_test_count_upper": float(k_hi), "single_photon_test_errors_upper": float(e),
+             "single_photon_population_rate_upper": p1}
+    return (arb(0.5) if phi >= 0.5 else arb(phi)), extra
 
 
 def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PREC,
