@@ -104,3 +104,18 @@ def test_random_blocks_never_exceed_the_raw_key(b, method):
     n_x = sum(b.key_detections)
     assert 0 <= r.secret_key_length <= n_x - b.ec_leak_bits or r.secret_key_length == 0
     assert r.secret_key_length <= n_x
+
+
+def test_counts_beyond_the_exact_range_name_the_block_field():
+    from finitekey.errors import InputError
+    mu, p = [0.5, 0.1, 2e-4], [0.8, 0.15, 0.05]
+    big = _block(mu, p, [2**51, 10**6, 1000], [0, 0, 0], [4000, 150, 100], [0, 0, 0])
+    with pytest.raises(InputError) as ei:
+        D.key_length(big, "exact")
+    assert ei.value.field == "key_basis.detections[0]" and "2**50" in str(ei.value)
+    summed = _block(mu, p, [4000, 150, 100], [0, 0, 0], [2**49, 2**49, 2**49], [0, 0, 0])
+    with pytest.raises(InputError) as ei:
+        D.key_length(summed, "exact")
+    assert ei.value.field == "test_basis.detections"
+    # the other statistics accept such blocks
+    assert D.key_length(big, "hoeffding").secret_key_length >= 0

@@ -474,6 +474,8 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     .. [2] D. Rusca et al., Appl. Phys. Lett. 112, 171104 (2018).
     """
     method = _check_statistics(statistics)
+    if method == "exact":
+        _check_exact_range(block)
     analysis = analysis_kind(block.intensities, analysis)
     ledger = block_ledger(block, method, analysis)
     eps_c = ledger.epsilon("count_estimation")
@@ -522,6 +524,22 @@ def _inconsistent_result(block, method, analysis, ledger, est, violations) -> Ke
         assumptions=ASSUMPTIONS + (f"analysis: {analysis}",
                                    "block rejected, inconsistent with the decoy model: " + "; ".join(violations)),
         terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA, references=REFERENCES)
+
+
+#: The exact binomial tails accept at most this many trials (finitekey.bounds.binomial_exact).
+MAX_EXACT_TRIALS = 2**50
+
+
+def _check_exact_range(block: DecoyBlock) -> None:
+    """The exact intervals treat a basis's total detections as the number of trials: at most 2**50."""
+    for name, det in (("key_basis", block.key_detections), ("test_basis", block.test_detections)):
+        allowed = (f"counts whose sum over intensities is at most 2**50 = {MAX_EXACT_TRIALS} for "
+                   f"statistics='exact' (use 'chernoff' or 'hoeffding' for larger blocks)")
+        for i, d in enumerate(det):
+            if d > MAX_EXACT_TRIALS:
+                raise InputError(f"{name}.detections[{i}]", d, allowed)
+        if sum(det) > MAX_EXACT_TRIALS:
+            raise InputError(f"{name}.detections", list(det), allowed)
 
 
 def _check_statistics(statistics):
