@@ -181,7 +181,8 @@ def allocate(eps_sec: float, eps_cor: float, specs: Sequence[TermSpec],
         raise InputError(f"epsilon_split.{unknown[0]}", fractions[unknown[0]], "one of the terms " + ", ".join(names))
     missing = [n for n in names if n not in fractions]
     if missing:
-        raise InputError(f"epsilon_split.{missing[0]}", None, "a share in (0, 1) for every secrecy term: " + ", ".join(names))
+        raise InputError(f"epsilon_split.{missing[0]}", None,
+                         "a share in (0, 1) for every secrecy term: " + ", ".join(names))
     share = Domain(0.0, 1.0, lower_open=True)
     fr = {n: share.check(f"epsilon_split.{n}", fractions[n]) for n in names}
     total = math.fsum(fr.values())

@@ -17,7 +17,6 @@ import sys
 from pathlib import Path
 
 import mpmath
-import numpy as np
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st

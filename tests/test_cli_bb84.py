@@ -121,7 +121,8 @@ def test_design_default_and_file(tmp_path, capsys):
     assert d["protocol"] == "bb84" and 0.5 < d["parameters"]["p_x"] < 1
     rc, _, err = run(capsys, ["design", toml, "--reach"])
     assert rc == 2 and "decoy-bb84" in err
-    bad = write(tmp_path, "bad.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.02\nlos = 3\n[budget]\ndetections = 1e6\n'
+    bad = write(tmp_path, "bad.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.02\nlos = 3\n'
+                                      '[budget]\ndetections = 1e6\n'
                                       '[security]\neps_total = 1e-9\n')
     rc, _, err = run(capsys, ["design", bad])
     assert rc == 2 and "channel.los" in err

@@ -34,11 +34,11 @@ from typing import Mapping
 import mpmath
 import numpy as np
 import sympy as sp
-from flint import arb, ctx
+from flint import ctx
 from scipy import optimize
 
 from ..compile import CompiledExpression, Enclosure, compile_expression, to_arb
-from ..domains import PROBABILITY, Domain, Parameter
+from ..domains import PROBABILITY, Parameter
 from ..errors import ComputationError, InputError
 
 __all__ = ["Bound", "SymbolicBound", "EPS", "Reference"]
@@ -112,7 +112,8 @@ class Bound(abc.ABC):
         expected = [p.name for p in self.parameters]
         unknown = sorted(set(params) - set(expected))
         if unknown:
-            raise InputError(unknown[0], params[unknown[0]], f"one of the parameters of {self.name}: {', '.join(expected)}")
+            raise InputError(unknown[0], params[unknown[0]],
+                             f"one of the parameters of {self.name}: {', '.join(expected)}")
         out = {}
         for p in self.parameters:
             if p.name not in params:
@@ -339,7 +340,8 @@ class SymbolicBound(Bound):
                     val = complex(s.evalf(30, subs={**{self.symbols[k]: v for k, v in pt.items()}, eps: target}))
                 except (TypeError, ValueError):
                     continue
-                if abs(val.imag) > 1e-12 * max(1.0, abs(val.real)) or not self.deviation_parameter.domain.contains(val.real):
+                if (abs(val.imag) > 1e-12 * max(1.0, abs(val.real))
+                        or not self.deviation_parameter.domain.contains(val.real)):
                     continue
                 back = float(self._tail.mp(*pt.values(), val.real, dps=30))
                 if abs(back - target) <= 1e-8 * target:

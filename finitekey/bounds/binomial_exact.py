@@ -56,8 +56,10 @@ DEVIATION = Parameter("delta", r"\delta", Domain(-1.0, 1.0),
                       "upper confidence limit minus the observed fraction x/n")
 
 _REFS = (
-    Reference("clopper1934", "C. J. Clopper and E. S. Pearson, Biometrika 26, 404-413 (1934)", "10.1093/biomet/26.4.404"),
-    Reference("abramowitz1964", "M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions, eq. 26.5.24 (1964)"),
+    Reference("clopper1934", "C. J. Clopper and E. S. Pearson, Biometrika 26, 404-413 (1934)",
+              "10.1093/biomet/26.4.404"),
+    Reference("abramowitz1964",
+              "M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions, eq. 26.5.24 (1964)"),
 )
 
 

@@ -491,7 +491,8 @@ class HypergeometricSampling(Bound):
         e, k, n = np.asarray(params["e"]), np.asarray(params["k"]), np.asarray(params["n"])
         if np.any(e > k):
             be, bk = np.broadcast_arrays(e, k)
-            raise InputError("e", be[be > bk].ravel()[0].item(), "an integer in [0, k] (errors cannot exceed test bits)")
+            raise InputError("e", be[be > bk].ravel()[0].item(),
+                             "an integer in [0, k] (errors cannot exceed test bits)")
         if np.any(n + k > MAX_POPULATION):
             raise InputError("n", n.ravel()[0].item() if n.ndim else n.item(), f"n + k <= {MAX_POPULATION}")
 
