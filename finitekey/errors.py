@@ -34,6 +34,10 @@ class InputError(FiniteKeyError, ValueError):
         self.allowed = allowed
         super().__init__(f"{field} = {_show(value)} is not allowed; expected {allowed}")
 
+    def __reduce__(self):
+        # Rebuild from the three fields, so the error survives pickling (worker processes, Dask).
+        return (type(self), (self.field, self.value, self.allowed))
+
 
 class ComputationError(FiniteKeyError, ArithmeticError):
     """A numerical procedure could not produce a result it can vouch for."""

@@ -372,3 +372,21 @@ def test_latex_escape_handles_unicode_symbols():
     out = formats.latex_escape("eta × 2 ≤ ε_s − 1, 50%")
     assert out == r"eta \ensuremath{\times} 2 \ensuremath{\le} \ensuremath{\varepsilon}\_s - 1, 50\%"
     assert all(ord(c) < 128 for c in out)
+
+
+def test_input_error_pickles_and_atomic_write_uses_normal_permissions(tmp_path):
+    # Errors cross process boundaries in parallel sweeps; output files must not end up private (0600).
+    import os
+    import pickle
+
+    from finitekey.errors import InputError
+    from finitekey.files import atomic_write
+
+    err = pickle.loads(pickle.dumps(InputError("link.distance_km", -1.0, "a real number in [0, inf)")))
+    assert isinstance(err, InputError) and err.field == "link.distance_km" and "-1.0" in str(err)
+    umask = os.umask(0o022)
+    try:
+        atomic_write(tmp_path / "t.txt", "x")
+    finally:
+        os.umask(umask)
+    assert (os.stat(tmp_path / "t.txt").st_mode & 0o777) == 0o644
