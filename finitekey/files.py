@@ -80,30 +80,43 @@ def read_toml(path) -> dict:
         raise InputError(str(path), str(exc), "valid TOML") from None
 
 
-def read_records(path) -> list:
-    """Read one record per line from JSON Lines (``.jsonl``) or CSV (``.csv``) or a JSON list.
+def read_records(path):
+    """Read blocks from a file: one per line of JSON Lines (``.jsonl``/``.ndjson``) or CSV (``.csv``), else JSON.
 
-    CSV cells that look like numbers become int or float; list-valued fields in
-    CSV are written as ``a;b;c``.
+    Returns
+    -------
+    records : list of (int or None, dict)
+        Each record with the line number it came from (None for a single JSON object).
+    batch : bool
+        Whether the file holds a batch (lines, or a JSON list) rather than one block.
+
+    CSV cells that look like numbers become int or float; list-valued fields are written ``a;b;c``.
+    Errors name the file and the line.
     """
     p = str(path)
-    if p.endswith(".csv"):
-        rows = list(csv.DictReader(io.StringIO(_read_text(path))))
-        return [{k: _cell(v) for k, v in row.items() if k is not None and v not in ("", None)} for row in rows]
-    if p.endswith(".jsonl") or p.endswith(".ndjson"):
+    if p.endswith((".jsonl", ".ndjson")):
         out = []
         for i, line in enumerate(_read_text(path).splitlines(), start=1):
             if not line.strip():
                 continue
             try:
-                out.append(json.loads(line))
+                out.append((i, json.loads(line)))
             except json.JSONDecodeError as exc:
                 raise InputError(f"{path}: line {i}", exc.msg, "one JSON object per line") from None
-        return out
+        return out, True
+    if p.endswith(".csv"):
+        reader = csv.DictReader(io.StringIO(_read_text(path)))
+        out = []
+        for row in reader:
+            line = reader.line_num
+            if None in row:
+                raise InputError(f"{path}: line {line}", row[None], "no more cells than header columns")
+            out.append((line, {k: _cell(v) for k, v in row.items() if v not in ("", None)}))
+        return out, True
     data = read_json(path)
     if isinstance(data, list):
-        return data
-    return [data]
+        return [(i, d) for i, d in enumerate(data, start=1)], True
+    return [(None, data)], False
 
 
 def _cell(v: str):

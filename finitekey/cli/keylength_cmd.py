@@ -9,15 +9,12 @@ Lines (one result per input line); otherwise a table.  A bad line fails the run 
 from __future__ import annotations
 
 import argparse
-import csv
-import io
 import json
-from pathlib import Path
 from types import SimpleNamespace
 
 from .. import protocols
 from ..errors import InputError
-from ..files import read_json
+from ..files import read_records
 from .render import caution_block, fmt, table, to_json
 
 __all__ = ["COMMAND", "load_blocks", "render_key_result", "render_ledger"]
@@ -30,55 +27,8 @@ def _args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--json", action="store_true", help="machine-readable output (JSON; JSON Lines for a batch)")
 
 
-def _read_text(path: str) -> str:
-    p = Path(path)
-    if not p.is_file():
-        raise InputError("file", str(path), "a path to an existing, readable file")
-    try:
-        return p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError("file", str(path), f"a readable UTF-8 text file ({exc})") from None
-
-
-def load_blocks(path: str):
-    """Return ``(records, batch)``: a list of ``(line_number_or_None, mapping)`` and whether the file is a batch."""
-    p = str(path)
-    if p.endswith((".jsonl", ".ndjson")):
-        out = []
-        for i, line in enumerate(_read_text(path).splitlines(), start=1):
-            if not line.strip():
-                continue
-            try:
-                out.append((i, json.loads(line)))
-            except json.JSONDecodeError as exc:
-                raise InputError(f"{path}: line {i}", exc.msg, "one JSON object per line") from None
-        return out, True
-    if p.endswith(".csv"):
-        reader = csv.DictReader(io.StringIO(_read_text(path)))
-        out = []
-        for row in reader:
-            line = reader.line_num
-            if None in row:
-                raise InputError(f"{path}: line {line}", row[None], "no more cells than header columns")
-            out.append((line, {k: _cell(v) for k, v in row.items() if v not in ("", None)}))
-        return out, True
-    data = read_json(path)
-    if isinstance(data, list):
-        return [(i, d) for i, d in enumerate(data, start=1)], True
-    return [(None, data)], False
-
-
-def _cell(v: str):
-    if ";" in v:
-        return [_cell(x) for x in v.split(";")]
-    try:
-        return int(v)
-    except ValueError:
-        pass
-    try:
-        return float(v)
-    except ValueError:
-        return v
+#: Blocks come from :func:`finitekey.files.read_records` (single JSON, JSON list, JSON Lines or CSV).
+load_blocks = read_records
 
 
 def _at(line, exc: InputError) -> InputError:
