@@ -34,9 +34,9 @@ def per_block(n: int, reps: int = 30) -> float:
     return statistics.median(times)
 
 
-def batch(blocks) -> float:
+def batch(blocks, jobs: int = 1) -> float:
     t = time.perf_counter()
-    bb84.key_length_batch(blocks, "exact")
+    bb84.key_length_batch(blocks, "exact", jobs=jobs)
     return len(blocks) / (time.perf_counter() - t)
 
 
@@ -52,6 +52,11 @@ def main() -> None:
     distinct = [_block(int(n_), int(n_) // 20, int(int(n_) // 20 * 0.02), int(0.16 * n_))
                 for n_ in rng.integers(10**5, 10**8, size=500)]
     rows.append(("batch, all blocks different", batch(distinct), "blocks/s", ">= 1e4/s"))
+    many = [_block(int(n_), int(n_) // 20, int(int(n_) // 20 * 0.02), int(0.16 * n_))
+            for n_ in rng.integers(10**5, 10**8, size=8000)]
+    one, two = batch(many), batch(many, jobs=2)
+    rows.append(("batch, 8000 different, 1 process", one, "blocks/s", ">= 1e4/s"))
+    rows.append(("batch, 8000 different, 2 processes", two, "blocks/s", f"ratio {two / one:.2f}x"))
     sc = bb84.BB84_PROTOCOL.default_scenario()
     t = time.perf_counter()
     bb84.design(sc)

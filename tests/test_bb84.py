@@ -514,3 +514,20 @@ def test_modelled_leakage_is_flagged_in_the_assumptions():
     assert mod.MODELLED_LEAKAGE_ASSUMPTION not in measured.assumptions
     assert mod.MODELLED_LEAKAGE_ASSUMPTION in modelled.assumptions
     assert "MODELLED" in " ".join(modelled.to_dict()["assumptions"])
+
+
+def test_parallel_batch_equals_serial_batch():
+    # Splitting a batch over worker processes must not change any result (same lengths, same ledgers).
+    import numpy as np
+
+    from finitekey.protocols import bb84 as mod
+
+    rng = np.random.default_rng(7)
+    blocks = [mod.parse_block({"key_bits": int(n), "test_bits": int(k), "test_errors": int(rng.integers(0, k // 20)),
+                               "ec_leak_bits": int(n // 5), "eps_sec": 1e-10, "eps_cor": 1e-15})
+              for n, k in zip(rng.integers(10**4, 10**7, 2100), rng.integers(10**3, 10**5, 2100))]
+    serial = mod.key_length_batch(blocks)
+    parallel = mod.key_length_batch(blocks, jobs=2)
+    assert [r.secret_key_length for r in parallel] == [r.secret_key_length for r in serial]
+    assert [r.ledger for r in parallel] == [r.ledger for r in serial]
+    assert any(r.secret_key_length > 0 for r in serial)

@@ -449,18 +449,47 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
                            estimates, FORMULA_LATEX, REFERENCES)
 
 
-def key_length_batch(blocks, statistics=None, *, prec: int = 128) -> list:
+def key_length_batch(blocks, statistics=None, *, prec: int = 128, jobs: int = 1) -> list:
     """Key lengths of many blocks (results identical to :func:`key_length`, block by block).
 
     The blocks share one ledger cache and one cache of certified phase-error bounds keyed by
     ``(n, k, e, eps)``: in a post-processing stream the block sizes repeat and the test errors take few
     values, so most blocks cost one ball evaluation of the compiled formula.  Every length is certified.
+
+    Parameters
+    ----------
+    blocks : sequence of BB84Block
+    statistics : {"exact", "serfling"}, optional
+    prec : int
+        Working precision of the ball arithmetic, in bits.
+    jobs : int
+        Worker processes.  With ``jobs > 1`` and at least ``_PARALLEL_MIN`` blocks, contiguous chunks are
+        computed in separate processes (each with its own caches) and joined in order, so the results are
+        the same as with ``jobs = 1``.
     """
+    jobs = POSITIVE_COUNT.check("jobs", jobs)
+    blocks = list(blocks)
+    if jobs > 1 and len(blocks) >= _PARALLEL_MIN:
+        import concurrent.futures
+        import multiprocessing
+
+        size = -(-len(blocks) // jobs)
+        chunks = [blocks[i:i + size] for i in range(0, len(blocks), size)]
+        method = "fork" if "fork" in multiprocessing.get_all_start_methods() else None
+        with concurrent.futures.ProcessPoolExecutor(max_workers=jobs,
+                                                    mp_context=multiprocessing.get_context(method)) as pool:
+            parts = pool.map(_batch_chunk, chunks, [statistics] * len(chunks), [prec] * len(chunks))
+            return [r for part in parts for r in part]
+    return _batch_chunk(blocks, statistics, prec)
+
+
+#: Smallest batch worth splitting over processes (below it, process start-up costs more than it saves).
+_PARALLEL_MIN = 2000
+
+
+def _batch_chunk(blocks, statistics, prec) -> list:
     cache: dict = {}
-    out = []
-    for b in blocks:
-        out.append(key_length(b, statistics, prec=prec, _cache=cache))
-    return out
+    return [key_length(b, statistics, prec=prec, _cache=cache) for b in blocks]
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -896,8 +925,8 @@ class BB84:
         return key_length(block, statistics)
 
     @staticmethod
-    def key_length_batch(blocks, statistics=None):
-        return key_length_batch(blocks, statistics)
+    def key_length_batch(blocks, statistics=None, jobs: int = 1):
+        return key_length_batch(blocks, statistics, jobs=jobs)
 
     @staticmethod
     def default_scenario():
