@@ -119,3 +119,24 @@ def test_counts_beyond_the_exact_range_name_the_block_field():
     assert ei.value.field == "test_basis.detections"
     # the other statistics accept such blocks
     assert D.key_length(big, "hoeffding").secret_key_length >= 0
+
+
+@pytest.mark.parametrize("mu,p", [([0.5, 0.1, 0.0], [0.6, 0.2, 0.2]), ([0.9, 0.3, 0.1, 0.0], [0.4, 0.2, 0.2, 0.2])])
+def test_vacuum_detections_without_errors_get_no_key(mu, p):
+    # A vacuum detection is an error with probability 1/2 whatever the adversary does (common practice, no
+    # source).  A block with a 30% vacuum detection probability but (almost) no errors cannot come from the
+    # model; found by review for the three-intensity closed form and the linear programme.
+    import math
+
+    from finitekey.protocols import decoy_bb84 as D
+
+    for qe in (0.0, 0.01):
+        d = [int(10**7 * pk * (1 - 0.7 * math.exp(-0.1 * m))) for m, pk in zip(mu, p)]
+        block = D.parse_block({"intensities": mu, "intensity_probabilities": p,
+                               "key_basis": {"detections": d, "errors": [int(qe * x) for x in d]},
+                               "test_basis": {"detections": [x // 10 for x in d],
+                                              "errors": [int(qe * x) // 10 for x in d]},
+                               "ec_leak_bits": 0, "eps_sec": 1e-10, "eps_cor": 1e-15})
+        res = D.key_length(block)
+        assert res.secret_key_length == 0
+        assert res.estimates.get("note_block_inconsistent_with_decoy_model") == 1.0

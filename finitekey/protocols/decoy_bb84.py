@@ -355,7 +355,8 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
 
     Under the good events every bound holds for the true counts, and the true counts obey
     ``s0 + s1 <= n_X`` (key-basis detections summed over intensities), ``s0Z + s1Z <= n_Z``,
-    ``0 <= v1 <= m_Z`` (test-basis errors summed) and, with two intensities, ``s0 <= s0_upper``.  Bounds
+    ``0 <= v1 <= m_Z`` (test-basis errors summed), vacuum errors about half the vacuum detections, and,
+    with two intensities, ``s0 <= s0_upper``.  Bounds
     that violate one of these show that the block cannot come from the decoy model (or a good event
     failed): no key may be extracted.  Upper bounds are clamped to the physical maximum (``v1 <= m_Z``),
     which keeps them valid; lower bounds are never raised.
@@ -375,6 +376,15 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
         bad.append("s0_test_lower + s1_test_lower > test-basis detections")
     if A.ceil_arb(est["v1"]) < 0:
         bad.append("e1_test_errors_upper < 0")
+    # A vacuum detection is an error with probability 1/2 whatever the adversary does, so far fewer errors
+    # than half the vacuum lower bound cannot come from the model.  This only rejects (key 0), which is
+    # always safe; the threshold uses Hoeffding's deviation at eps_sec over at most n detections.
+    slack = math.log(1.0 / block.eps_sec) / 2.0
+    m_x = sum(block.key_errors)
+    if pos(est["s0"]) / 2.0 - math.sqrt(n_x * slack) > m_x:
+        bad.append("key-basis errors fewer than half the vacuum lower bound allows")
+    if "s0z" in est and pos(est["s0z"]) / 2.0 - math.sqrt(n_z * slack) > m_z:
+        bad.append("test-basis errors fewer than half the vacuum lower bound allows")
     if "s0_upper" in est and (A.floor_arb(est["s0"]) > A.ceil_arb(est["s0_upper"])
                               or A.floor_arb(est["s0z"]) > A.ceil_arb(est["s0z_upper"])):
         bad.append("vacuum lower bound above the vacuum upper bound")
