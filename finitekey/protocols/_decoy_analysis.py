@@ -30,6 +30,7 @@ from scipy import special
 from ..bounds.binomial_exact import (binomial_lower_limit_certified, binomial_upper_limit_certified)
 from ..bounds.chernoff import (expectation_lower, expectation_lower_certified, expectation_upper,
                                expectation_upper_certified)
+from ..bounds.kato import KATO, kato_choose_a
 from ..compile import to_arb
 from ..errors import ComputationError
 
@@ -37,6 +38,8 @@ LN2 = math.log(2.0)
 
 #: Count-statistics methods: how an interval on an expected count is inferred from an observed count.
 COUNT_METHODS = ("exact", "chernoff", "hoeffding")
+#: Kato's inequality over all pulses (dependent rounds); certified key length only, no float design path.
+KATO_METHOD = "kato"
 
 
 # ---------------------------------------------------------------------------------------------------------
@@ -143,6 +146,75 @@ def count_interval_certified(method: str, observed: int, total: int, eps: float,
         if method == "chernoff":
             return arb(expectation_lower_certified(c, eps, prec)), arb(expectation_upper_certified(c, eps, prec))
     raise ValueError(method)
+
+
+# ---------------------------------------------------------------------------------------------------------
+# Kato's inequality over the rounds (statistics="kato"; proof note, section 2a)
+# ---------------------------------------------------------------------------------------------------------
+def kato_tilt(n: int, expected, eps: float, direction: str) -> float:
+    """Tilt ``a`` of Kato's inequality fixed from a pre-registered expected sum (``None``: ``a = 0``).
+
+    ``direction="upper"`` tunes the event ``Lambda - Gamma >= (b + a (2 Gamma/n - 1)) sqrt(n)`` (upper bound
+    on ``Lambda``, or lower bound on ``Gamma`` from ``Lambda``), ``"lower"`` the mirrored event.  ``a = 0`` is
+    Azuma-Hoeffding.  The result must depend on design values only, never on the observed block.
+    """
+    if expected is None:
+        return 0.0
+    m = min(max(float(expected), 0.0), float(n))
+    a = kato_choose_a(int(n), m, eps, direction)
+    # the conversions divide by 1 + 2a/sqrt(n); keep it >= 1/2 (a rule on design values only)
+    return a if 1 + 2 * a / math.sqrt(n) >= 0.5 else 0.0
+
+
+def _kato_b(n: int, a: float, eps: float, prec: int) -> arb:
+    """Exact ball at a float >= Kato's ``b`` at (n, a, eps)."""
+    return arb(KATO.deviation_certified(eps, prec, n=int(n), a=float(a)).hi)
+
+
+def kato_count_interval_certified(observed: int, n: int, a_lo: float, a_hi: float, eps: float, prec: int = 128):
+    """Certified interval on ``Lambda_n`` (sum over ``n`` rounds of the conditional probabilities) from the
+    observed sum ``Gamma_n = observed``: each side fails with probability at most ``eps`` (Kato 2020, from
+    memory; the lower side is the inequality for the complemented rounds).
+
+    ``hi = Gamma + (b(a_hi) + a_hi (2 Gamma/n - 1)) sqrt(n)``, ``lo = Gamma - (b(a_lo) - a_lo (2 Gamma/n - 1))
+    sqrt(n)``, as exact balls at outward-rounded floats, clipped to ``[0, n]``.
+    """
+    c, n = int(observed), int(n)
+    with ctx.workprec(prec):
+        rn = arb(n).sqrt()
+        t = 2 * arb(c) / n - 1
+        hi = arb(c) + (_kato_b(n, a_hi, eps, prec) + arb(a_hi) * t) * rn
+        lo = arb(c) - (_kato_b(n, a_lo, eps, prec) - arb(a_lo) * t) * rn
+        hi = arb(min(ceil_arb(hi), float(n)))
+        lo = arb(max(floor_arb(lo), 0.0))
+    return lo, hi
+
+
+def kato_actual_lower(lam_lower, n: int, a: float, eps: float, prec: int = 128):
+    """Lower bound on an actual count ``Gamma_n`` from a lower bound on its conditional sum ``Lambda_n``.
+
+    On the complement of ``Lambda - Gamma >= (b + a (2 Gamma/n - 1)) sqrt(n)`` (probability <= eps),
+    ``Gamma (1 + 2a/sqrt(n)) > Lambda - (b - a) sqrt(n)``; the right side increases in ``Lambda``, so its
+    lower bound may be plugged in.  Requires ``1 + 2a/sqrt(n) > 0`` (:func:`kato_tilt` ensures >= 1/2).
+    """
+    with ctx.workprec(prec):
+        rn = arb(int(n)).sqrt()
+        aa = arb(a)
+        val = (lam_lower - (_kato_b(n, a, eps, prec) - aa) * rn) / (1 + 2 * aa / rn)
+    return lower_end(val)
+
+
+def kato_actual_upper(lam_upper, n: int, a: float, eps: float, prec: int = 128):
+    """Upper bound on an actual count ``Gamma_n`` from an upper bound on ``Lambda_n``.
+
+    On the complement of the mirrored event ``Gamma - Lambda >= (b - a (2 Gamma/n - 1)) sqrt(n)``,
+    ``Gamma (1 + 2a/sqrt(n)) < Lambda + (b + a) sqrt(n)`` (increasing in ``Lambda``).
+    """
+    with ctx.workprec(prec):
+        rn = arb(int(n)).sqrt()
+        aa = arb(a)
+        val = (lam_upper + (_kato_b(n, a, eps, prec) + aa) * rn) / (1 + 2 * aa / rn)
+    return upper_end(val)
 
 
 # ---------------------------------------------------------------------------------------------------------

@@ -27,6 +27,9 @@ Statistics (``statistics=``):
   epsilon ``eps_sec/21``, and the phase-error term ``max(gamma_2014, mu)``: the 2014 sampling term
   ``gamma`` is not a valid bound on its own (it tends to 0 with the test error rate), so it is kept only
   where it exceeds the rigorous random-sampling (Serfling) deviation ``mu`` at the same epsilon.
+* ``"kato"``: Kato's inequality over all ``pulses`` of the block (dependent rounds): intervals on sums of
+  conditional probabilities, tilts from the pre-registered ``kato_expected`` (``a = 0``, Azuma-Hoeffding,
+  without it), four more events converting the decoy bounds to actual counts; closed forms only, no design.
 
 Analyses by intensity count: 3 intensities with ``mu1 > mu2 + mu3`` use the closed form of Lim et al.;
 2 intensities the one-decoy closed form of Rusca et al. (vacuum bounded from error counts); any other count
@@ -45,6 +48,7 @@ References
 .. [4] W. Hoeffding, "On the distribution of the number of successes in independent trials",
    Ann. Math. Statist. 27, 713-721 (1956).
 .. [5] H.-K. Lo, X. Ma, K. Chen, "Decoy state quantum key distribution", Phys. Rev. Lett. 94, 230504 (2005).
+.. [6] G. Kato, "Concentration inequality using unconfirmed knowledge", arXiv:2002.04357 (2020).
 """
 
 from __future__ import annotations
@@ -68,7 +72,11 @@ __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_N
            "term_specs", "gllp_rate", "optimal_gllp_rate", "three_intensity_condition"]
 
 PROTOCOL_NAME = "decoy-bb84"
-STATISTICS = ("exact", "chernoff", "hoeffding")
+STATISTICS = ("exact", "chernoff", "hoeffding", "kato")
+#: Methods the float design objective supports (kato has no design continuation).
+DESIGN_STATISTICS = ("exact", "chernoff", "hoeffding")
+#: Extra one-sided events of the kato method: conditional sums -> actual counts for s0, s1, s1Z, v1.
+KATO_CONVERSIONS = 4
 DEFAULT_STATISTICS = "exact"
 _PREC = 128
 #: The 2014 reference spends eps_sec/21 on every event.
@@ -99,6 +107,12 @@ ASSUMPTIONS = (
     "maximum over all runs, not the count of one run (proofs_notes/reconciliation.md)",
 )
 
+#: Added to the references and assumptions of results computed with statistics="kato".
+KATO_REFERENCE = "G. Kato, Concentration inequality using unconfirmed knowledge, arXiv:2002.04357 (2020)"
+KATO_ASSUMPTION = ("statistics kato: for every pulse, given its photon number and everything before it, the "
+                   "intensity label is independent of the detection and error outcome (labels announced after all "
+                   "pulses); pulses and kato_expected were fixed before the run (Kato's statement from memory)")
+
 _SHARE = Domain(0.0, 1.0, lower_open=True, upper_open=True)
 _POSITIVE = Domain(0.0, math.inf, lower_open=True)
 
@@ -114,8 +128,14 @@ def three_intensity_condition(mu) -> bool:
 SECRECY_TERMS = ("count_estimation", "phase_error_sampling", "chain_rule", "privacy_amplification")
 
 
-def count_events(n_intensities: int, analysis: str) -> int:
-    """Number of one-sided count intervals the analysis uses (each charged its own epsilon)."""
+def count_events(n_intensities: int, analysis: str, statistics: str | None = None) -> int:
+    """Number of one-sided count intervals the analysis uses (each charged its own epsilon).
+
+    With ``statistics="kato"`` four more one-sided events (the conversions of the conditional sums of
+    ``s0``, ``s1``, ``s1Z`` and ``v1`` into bounds on the actual counts, proof note section 2a).
+    """
+    if statistics == "kato":
+        return count_events(n_intensities, analysis) + KATO_CONVERSIONS
     if analysis == "three-intensity":
         return 12   # key: n1+, n2-, n2+, n3-, n3+; test: the same 5; test errors: m2+, m3-
     if analysis == "two-intensity":
@@ -164,7 +184,11 @@ def reference_ledger(eps_sec: float, eps_cor: float, n_count: int) -> Ledger:
 # ---------------------------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class DecoyBlock:
-    """One observed block of decoy-state BB84 (validated by :meth:`DecoyBB84.parse_block`)."""
+    """One observed block of decoy-state BB84 (validated by :meth:`DecoyBB84.parse_block`).
+
+    ``pulses`` (total pulses sent) and ``kato_expected`` (pre-registered expected counts, tables like
+    ``key_basis``/``test_basis``) are optional and used by ``statistics="kato"`` only.
+    """
 
     intensities: tuple
     intensity_probabilities: tuple
@@ -177,6 +201,8 @@ class DecoyBlock:
     eps_cor: float
     epsilon_split: dict | None = None
     label: str | None = None
+    pulses: int | None = None
+    kato_expected: dict | None = None
 
     def as_dict(self) -> dict:
         d = {"protocol": PROTOCOL_NAME, "intensities": list(self.intensities),
@@ -186,11 +212,15 @@ class DecoyBlock:
              "ec_leak_bits": self.ec_leak_bits, "eps_sec": self.eps_sec, "eps_cor": self.eps_cor}
         if self.epsilon_split is not None:
             d["epsilon_split"] = dict(self.epsilon_split)
+        if self.pulses is not None:
+            d["pulses"] = self.pulses
+        if self.kato_expected is not None:
+            d["kato_expected"] = {b: {k: list(v) for k, v in t.items()} for b, t in self.kato_expected.items()}
         return d
 
 
 _BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
-                 "eps_sec", "eps_cor", "epsilon_split", "label")
+                 "eps_sec", "eps_cor", "epsilon_split", "label", "pulses", "kato_expected")
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -266,7 +296,46 @@ def parse_block(data: dict) -> DecoyBlock:
     label = data.get("label")
     if label is not None and not isinstance(label, str):
         raise InputError("label", label, "a text identifier of the block")
-    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split, label)
+    pulses = None
+    if data.get("pulses") is not None:
+        pulses = int(COUNT.check("pulses", data["pulses"]))
+        total = sum(kd) + sum(td)
+        if pulses < max(total, 1):
+            raise InputError("pulses", data["pulses"], f"an integer >= the detections of both bases ({total}): "
+                             "the total number of pulses sent")
+    expected = None
+    if data.get("kato_expected") is not None:
+        expected = _check_kato_expected(data["kato_expected"], len(mu), pulses)
+    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split, label, pulses, expected)
+
+
+_EXPECTED = Domain(0.0, math.inf)
+
+
+def _check_kato_expected(data, n: int, pulses) -> dict:
+    """``kato_expected``: pre-registered expected counts, the same tables as ``key_basis``/``test_basis``."""
+    shape = ('{"key_basis": {"detections": [...], "errors": [...]}, "test_basis": {...}} with lists of '
+             f"{n} non-negative numbers (one per intensity)")
+    if not isinstance(data, dict) or sorted(data) != ["key_basis", "test_basis"]:
+        raise InputError("kato_expected", data, shape)
+    out = {}
+    for b in ("key_basis", "test_basis"):
+        t = data[b]
+        if not isinstance(t, dict) or sorted(t) != ["detections", "errors"]:
+            raise InputError(f"kato_expected.{b}", t, shape)
+        out[b] = {}
+        for k in ("detections", "errors"):
+            name = f"kato_expected.{b}.{k}"
+            v = t[k]
+            if not isinstance(v, (list, tuple)) or len(v) != n:
+                raise InputError(name, v, f"a list of {n} non-negative numbers (one per intensity)")
+            vals = tuple(float(_EXPECTED.check(f"{name}[{i}]", x)) for i, x in enumerate(v))
+            if pulses is not None:
+                for i, x in enumerate(vals):
+                    if x > pulses:
+                        raise InputError(f"{name}[{i}]", x, f"a number in [0, pulses = {pulses}]")
+            out[b][k] = vals
+    return out
 
 
 def _check_split(split) -> dict:
@@ -300,13 +369,24 @@ def analysis_kind(mu, analysis: str | None = None) -> str:
 
 
 def block_ledger(block: DecoyBlock, statistics: str, analysis: str) -> Ledger:
-    n_count = count_events(len(block.intensities), analysis)
+    n_count = count_events(len(block.intensities), analysis, statistics)
     if statistics == "hoeffding" and block.epsilon_split is None and analysis == "three-intensity":
         return reference_ledger(block.eps_sec, block.eps_cor, n_count)
     return allocate(block.eps_sec, block.eps_cor, term_specs(n_count), block.epsilon_split)
 
 
-def _intervals(method, counts, eps, prec):
+def _intervals(method, counts, eps, prec, kato=None):
+    """Certified intervals per intensity; ``kato = (pulses, expected list or None)`` for statistics="kato"."""
+    if method == "kato":
+        n, expected = kato
+        lo, hi = [], []
+        for i, c in enumerate(counts):
+            m = None if expected is None else expected[i]
+            a_lo, a_hi = A.kato_tilt(n, m, eps, "lower"), A.kato_tilt(n, m, eps, "upper")
+            a, b = A.kato_count_interval_certified(c, n, a_lo, a_hi, eps, prec)
+            lo.append(a)
+            hi.append(b)
+        return lo, hi
     total = sum(counts)
     lo, hi = [], []
     for c in counts:
@@ -321,17 +401,21 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
     mu = [arb(m) for m in block.intensities]
     p = [arb(x) for x in block.intensity_probabilities]
     exp = A.arb_exp
+    ex = block.kato_expected
+    def kato(basis, kind):
+        return None if method != "kato" else (block.pulses, None if ex is None else ex[basis][kind])
+
     with ctx.workprec(prec):
-        kl, kh = _intervals(method, block.key_detections, eps_c, prec)
-        tl, th = _intervals(method, block.test_detections, eps_c, prec)
-        el, eh = _intervals(method, block.test_errors, eps_c, prec)
+        kl, kh = _intervals(method, block.key_detections, eps_c, prec, kato("key_basis", "detections"))
+        tl, th = _intervals(method, block.test_detections, eps_c, prec, kato("test_basis", "detections"))
+        el, eh = _intervals(method, block.test_errors, eps_c, prec, kato("test_basis", "errors"))
         s0u = s0zu = None
         if analysis == "three-intensity":
             s0, s1 = A.three_intensity(mu, p, kl, kh, exp)
             s0z, s1z = A.three_intensity(mu, p, tl, th, exp)
             v1 = A.three_intensity_errors(mu, p, el, eh, exp)
         elif analysis == "two-intensity":
-            kel, keh = _intervals(method, block.key_errors, eps_c, prec)
+            kel, keh = _intervals(method, block.key_errors, eps_c, prec, kato("key_basis", "errors"))
             vac_key = _vacuum_deviation(method, sum(block.key_detections), eps_c)
             vac_test = _vacuum_deviation(method, sum(block.test_detections), eps_c)
             s0u = A.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
@@ -347,7 +431,54 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
         if s0u is not None:
             out["s0_upper"] = A.upper_end(s0u)
             out["s0z_upper"] = A.upper_end(s0zu)
+        if method == "kato":
+            out = _kato_actual_counts(block, analysis, out, eps_c, prec)
         return out
+
+
+def _kato_predicted(block: DecoyBlock, analysis: str) -> dict:
+    """Conditional sums of s0, s1, s1Z, v1 predicted from ``kato_expected`` (design values only).
+
+    The float closed forms at ``lo = hi = expected``; they only fix the tilts of the conversions, so any
+    pre-registered value is valid (a poor one only loosens the bound).
+    """
+    ex = block.kato_expected
+    if ex is None:
+        return {"s0": None, "s1": None, "s1z": None, "v1": None}
+    mu, p = list(block.intensities), list(block.intensity_probabilities)
+    kd, td = list(ex["key_basis"]["detections"]), list(ex["test_basis"]["detections"])
+    te, ke = list(ex["test_basis"]["errors"]), list(ex["key_basis"]["errors"])
+    if analysis == "three-intensity":
+        s0, s1 = A.three_intensity(mu, p, kd, kd, np.exp)
+        _, s1z = A.three_intensity(mu, p, td, td, np.exp)
+        v1 = A.three_intensity_errors(mu, p, te, te, np.exp)
+    else:
+        s0u = A.two_intensity_vacuum_upper(mu, p, ke[1], 0.0, np.exp)
+        s0, s1 = A.two_intensity(mu, p, kd, kd, s0u, np.exp)
+        s0zu = A.two_intensity_vacuum_upper(mu, p, te[1], 0.0, np.exp)
+        _, s1z = A.two_intensity(mu, p, td, td, s0zu, np.exp)
+        v1 = A.two_intensity_errors(mu, p, te, te, np.exp)
+    return {"s0": float(s0), "s1": float(s1), "s1z": float(s1z), "v1": float(v1)}
+
+
+def _kato_actual_counts(block: DecoyBlock, analysis: str, est: dict, eps_c: float, prec: int) -> dict:
+    """Kato: the closed forms bound conditional sums over the pulses; convert s0, s1, s1Z (lower) and v1
+    (upper) into bounds on the actual counts (4 more one-sided events, each at ``eps_c``)."""
+    n = block.pulses
+    pred = _kato_predicted(block, analysis)
+    out = dict(est)
+    for name in ("s0", "s1", "s1z"):
+        a = A.kato_tilt(n, pred[name], eps_c, "upper")
+        out[name] = A.kato_actual_lower(est[name], n, a, eps_c, prec)
+    out["s0"] = A.lower_end(A.clip0(out["s0"]))
+    a = A.kato_tilt(n, pred["v1"], eps_c, "lower")
+    out["v1"] = A.kato_actual_upper(est["v1"], n, a, eps_c, prec)
+    # s0Z (and the vacuum upper bounds) stay conditional sums: the test vacuum bound is not used for the
+    # actual test count (k_upper = n_Z, see _physical_check) and the vacuum consistency test is skipped.
+    out.pop("s0z_upper", None)
+    out.pop("s0_upper", None)
+    out["s0z_conditional"] = out.pop("s0z")
+    return out
 
 
 def _physical_check(block: DecoyBlock, est: dict) -> tuple:
@@ -465,8 +596,8 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     Parameters
     ----------
     block : DecoyBlock
-    statistics : {"exact", "chernoff", "hoeffding"}, optional
-        Default ``"exact"``.
+    statistics : {"exact", "chernoff", "hoeffding", "kato"}, optional
+        Default ``"exact"``.  ``"kato"`` needs the block field ``pulses``.
     prec : int
         Bits of ball arithmetic.
     analysis : {None, "linear-programme"}
@@ -487,6 +618,8 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     if method == "exact":
         _check_exact_range(block)
     analysis = analysis_kind(block.intensities, analysis)
+    if method == "kato":
+        _check_kato(block, analysis)
     ledger = block_ledger(block, method, analysis)
     eps_c = ledger.epsilon("count_estimation")
     eps_p = ledger.epsilon("phase_error_sampling")
@@ -520,8 +653,12 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
                  "phase_error_upper": A.ceil_arb(phi), **extra}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
-        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",), terms=terms, estimates=estimates, formula=FORMULA,
-        references=REFERENCES)
+        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",) + _kato_extra(method, KATO_ASSUMPTION), terms=terms,
+        estimates=estimates, formula=FORMULA, references=REFERENCES + _kato_extra(method, KATO_REFERENCE))
+
+
+def _kato_extra(method: str, text: str) -> tuple:
+    return (text,) if method == "kato" else ()
 
 
 def _inconsistent_result(block, method, analysis, ledger, est, violations) -> KeyLengthResult:
@@ -532,8 +669,10 @@ def _inconsistent_result(block, method, analysis, ledger, est, violations) -> Ke
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=0, ledger=ledger, statistics=method,
         assumptions=ASSUMPTIONS + (f"analysis: {analysis}",
-                                   "block rejected, inconsistent with the decoy model: " + "; ".join(violations)),
-        terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA, references=REFERENCES)
+                                   "block rejected, inconsistent with the decoy model: " + "; ".join(violations))
+        + _kato_extra(method, KATO_ASSUMPTION),
+        terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA,
+        references=REFERENCES + _kato_extra(method, KATO_REFERENCE))
 
 
 #: The exact binomial tails accept at most this many trials (finitekey.bounds.binomial_exact).
@@ -550,6 +689,22 @@ def _check_exact_range(block: DecoyBlock) -> None:
                 raise InputError(f"{name}.detections[{i}]", d, allowed)
         if sum(det) > MAX_EXACT_TRIALS:
             raise InputError(f"{name}.detections", list(det), allowed)
+
+
+def _check_kato(block: DecoyBlock, analysis: str) -> None:
+    if block.pulses is None:
+        raise InputError("pulses", None, "the total number of pulses sent in the block (required for "
+                         "statistics='kato': Kato's inequality runs over all pulses)")
+    if analysis == "linear-programme":
+        raise InputError("statistics", "kato", "exact, chernoff or hoeffding for this block: kato supports the "
+                         "closed forms only (2 intensities, or 3 with mu1 > mu2 + mu3)")
+
+
+def _check_design_statistics(statistics):
+    method = _check_statistics(statistics)
+    if method not in DESIGN_STATISTICS:
+        raise InputError("statistics", method, "design supports " + ", ".join(DESIGN_STATISTICS))
+    return method
 
 
 def _check_statistics(statistics):
@@ -785,15 +940,15 @@ class DecoyBB84:
 
     def design(self, scenario: DecoyScenario, statistics: str | None = None) -> DesignResult:
         from ..optimize import decoy_design  # optimisation sits above protocols; imported on use
-        return decoy_design.design(scenario, _check_statistics(statistics))
+        return decoy_design.design(scenario, _check_design_statistics(statistics))
 
     def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None):
         from ..optimize import decoy_design
-        return decoy_design.blocksize(scenario, target, _check_statistics(statistics))
+        return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics))
 
     def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> dict:
         from ..optimize import decoy_design
-        return decoy_design.reach(scenario, _check_statistics(statistics))
+        return decoy_design.reach(scenario, _check_design_statistics(statistics))
 
     def scenario_fields(self) -> list:
         return scenario_fields()
