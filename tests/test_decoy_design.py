@@ -189,4 +189,4 @@ def test_dead_time_lowers_the_rate_and_is_reported():
     assert dead.expected_counts["live_fraction"] < 1.0
     assert dead.expected.secret_key_length < base.expected.secret_key_length
     # the float objective at the chosen point used the same live fraction as the reported counts
-    assert dead.parameters["float_objective_bits"] == pytest.approx(dead.expected.secret_key_length, rel=0.05)
+    assert dead.diagnostics["float_objective_bits"] == pytest.approx(dead.expected.secret_key_length, rel=0.05)

@@ -44,7 +44,7 @@ def _value(v):
     return fmt(v)
 
 
-#: Design fields that are optimiser diagnostics, not free parameters: shown apart.
+#: Optimiser diagnostics (DesignResult.diagnostics) shown in the text output, with label and unit.
 _DIAGNOSTICS = {"float_objective_bits": ("optimiser objective (float estimate)", "bits per block")}
 
 
@@ -60,7 +60,7 @@ def render_scenario(scenario: dict) -> str:
 def render_design(d, source: str | None = None) -> str:
     head = [f"Scenario ({source or 'built-in default scenario'}):", render_scenario(d.scenario), ""] \
         if getattr(d, "scenario", None) else []
-    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items() if k not in _DIAGNOSTICS]
+    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
     rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
              for k, v in d.expected_counts.items()]
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
@@ -74,8 +74,8 @@ def render_design(d, source: str | None = None) -> str:
     if d.block_fill_time_s is not None:
         rows.append(["block fill time", fmt(d.block_fill_time_s), "s"])
     for k, (label, unit) in _DIAGNOSTICS.items():
-        if k in d.parameters:
-            rows.append([label, fmt(d.parameters[k]), unit])
+        if k in d.diagnostics:
+            rows.append([label, fmt(d.diagnostics[k]), unit])
     return "\n".join(head + [f"Design ({d.protocol}, statistics {d.expected.statistics})",
                       table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
                       render_ledger(d.expected.ledger)])

@@ -413,11 +413,12 @@ def _result(problem, theta, fval) -> DesignResult:
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
               "key_basis_probability": qx,
-              "epsilon_split": kl.ledger.fractions(), "float_objective_bits": float(fval)}
+              "epsilon_split": kl.ledger.fractions()}
     expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": sc.pulses}
     return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
-                        block_fill_time_s=sc.model.block_fill_time_s(sc.pulses), scenario=sc.as_dict())
+                        block_fill_time_s=sc.model.block_fill_time_s(sc.pulses), scenario=sc.as_dict(),
+                        diagnostics={"float_objective_bits": float(fval)})
 
 
 def _at_distance(scenario, L):

@@ -130,6 +130,9 @@ class DesignResult:
         Time to collect one block, when the scenario gives a signal rate.
     scenario : dict
         Echo of the validated scenario.
+    diagnostics : dict
+        Optimiser facts that are not free parameters (e.g. the float objective it maximised), for
+        checking the optimiser; never used for a key length.
     """
 
     protocol: str
@@ -142,6 +145,7 @@ class DesignResult:
     scenario: dict = field(default_factory=dict)
     secret_key_rate_per_detection: float | None = None
     asymptotic_rate_per_detection: float | None = None
+    diagnostics: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         return {
@@ -159,6 +163,7 @@ class DesignResult:
                                               else float(self.asymptotic_rate_per_detection)),
             "scenario": self.scenario,
             "expected": self.expected.to_dict(),
+            "diagnostics": _finite(self.diagnostics),
         }
 
 
