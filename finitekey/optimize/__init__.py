@@ -8,6 +8,6 @@ scenario mapping on its ``[protocol] name`` through the registry.
 
 from __future__ import annotations
 
-from ._common import golden_max, maximize_box, smallest_passing
+from ..searching import golden_max, maximize_box, smallest_passing
 
 __all__ = ["maximize_box", "golden_max", "smallest_passing"]

@@ -64,7 +64,7 @@ from ..compile import compile_expression
 from ..domains import POSITIVE_COUNT, PROBABILITY, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
 from ..errors import ComputationError, InputError
-from ..optimize._common import golden_max, maximize_box, smallest_passing
+from ..searching import golden_max, maximize_box, smallest_passing
 from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, FixedEfficiency, LeakageModel,
                               SecondOrderLeakage)
 from ._registry import register
