@@ -60,7 +60,10 @@ def render_scenario(scenario: dict) -> str:
 def render_design(d, source: str | None = None) -> str:
     head = [f"Scenario ({source or 'built-in default scenario'}):", render_scenario(d.scenario), ""] \
         if getattr(d, "scenario", None) else []
-    rows = [["parameter: " + k, _value(v), ""] for k, v in d.parameters.items()]
+    rows = []
+    for k, v in d.parameters.items():  # a nested mapping (e.g. the epsilon split) gets one row per entry
+        items = v.items() if isinstance(v, dict) else [(None, v)]
+        rows += [["parameter: " + k + ("" if sub is None else "." + sub), _value(x), ""] for sub, x in items]
     rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
              for k, v in d.expected_counts.items()]
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
