@@ -20,6 +20,7 @@ def _block(L=50.0, N=1e10, mu=(0.5, 0.1, 2e-4), p=(0.7, 0.2, 0.1), q=0.9, eps_se
     nX = sum(kd)
     qber = sum(ke) / nX
     leak = int(math.ceil(f * nX * (-(qber * math.log2(qber) + (1 - qber) * math.log2(1 - qber)))))
+    leak = min(leak, nX)  # a block cannot disclose more than its key bits (parse_block enforces it)
     return D.parse_block({
         "protocol": "decoy-bb84", "intensities": list(mu), "intensity_probabilities": list(p),
         "key_basis": {"detections": kd, "errors": ke},
@@ -198,3 +199,19 @@ def test_block_label_is_carried():
     assert proto.parse_block(data).label == data["label"]
     with pytest.raises(InputError, match="label"):
         proto.parse_block({**data, "label": 7})
+
+
+def test_leakage_above_the_key_basis_detections_is_rejected():
+    # Reconciliation cannot disclose more bits than the sifted key has (same rule as for BB84 blocks).
+    import json
+    from pathlib import Path
+
+    from finitekey import protocols
+    from finitekey.errors import InputError
+
+    proto = protocols.get("decoy-bb84")
+    data = json.loads((Path(__file__).parent.parent / "examples" / "blocks" / "decoy_block.json").read_text())
+    n_key = sum(data["key_basis"]["detections"])
+    assert proto.parse_block({**data, "ec_leak_bits": n_key}).ec_leak_bits == n_key
+    with pytest.raises(InputError, match="ec_leak_bits"):
+        proto.parse_block({**data, "ec_leak_bits": n_key + 1})
