@@ -129,7 +129,13 @@ class CompiledExpression:
     _arb: Callable = field(repr=False)
 
     def numpy(self, *args):
-        """Evaluate in float64; arguments broadcast as numpy arrays."""
+        """Evaluate in float64; arguments broadcast as numpy arrays.
+
+        Integer arguments are converted to float64 first, so that products of counts cannot overflow
+        int64 (e.g. ``(n + k) (k + 1)`` at n = 1e10, k = 1e9).
+        """
+        args = [np.asarray(a, dtype=float) if isinstance(a, np.ndarray) and a.dtype.kind in "iuO"
+                else (float(a) if isinstance(a, (int, np.integer)) else a) for a in args]
         with np.errstate(all="ignore"):
             return self._numpy(*args)
 
@@ -152,10 +158,39 @@ class CompiledExpression:
         return sp.latex(self.expr)
 
 
+def _merge_square_roots(expr: sp.Expr) -> sp.Expr:
+    """Rewrite each product of square roots as one square root: ``sqrt(a) sqrt(b) / sqrt(c) -> sqrt(a b / c)``.
+
+    Exact wherever the original is real (every base non-negative); only the float64 code uses it, where it
+    saves array passes and square roots.  Outside that set the original gives NaN and the public methods
+    reject such inputs before evaluating.
+    """
+    if not expr.args:
+        return expr
+    expr = expr.func(*[_merge_square_roots(a) for a in expr.args])
+    if isinstance(expr, sp.Mul):
+        roots, rest = [], []
+        for f in expr.args:
+            if isinstance(f, sp.Pow) and f.exp in (sp.S.Half, -sp.S.Half):
+                roots.append(f.base if f.exp > 0 else 1 / f.base)
+            else:
+                rest.append(f)
+        if len(roots) > 1:
+            return sp.Mul(*rest) * sp.sqrt(sp.Mul(*roots))
+    return expr
+
+
+def _numpy_form(expr: sp.Expr, symbols: tuple):
+    """Expression and arguments for the float64 code: assumption-free symbols, so that merged roots stay merged."""
+    plain = tuple(sp.Symbol(s.name) for s in symbols)
+    return _merge_square_roots(expr.xreplace(dict(zip(symbols, plain)))), plain
+
+
 @functools.lru_cache(maxsize=None)
 def _compile(expr: sp.Expr, symbols: tuple) -> CompiledExpression:
-    np_fn = sp.lambdify(symbols, expr, modules="numpy", cse=True)
-    np_fn.__doc__ = f"Compiled from the sympy expression:\n\n    {expr}\n"
+    np_expr, np_symbols = _numpy_form(expr, symbols)
+    np_fn = sp.lambdify(np_symbols, np_expr, modules="numpy", cse=True)
+    np_fn.__doc__ = f"Compiled from the sympy expression:\n\n    {expr}\n\n(float64 form: {np_expr})\n"
     mp_fn = sp.lambdify(symbols, expr, modules="mpmath")
     arb_fn = sp.lambdify(symbols, expr, modules=[_ARB_NAMESPACE, "mpmath"])
     return CompiledExpression(expr, symbols, np_fn, mp_fn, arb_fn)
