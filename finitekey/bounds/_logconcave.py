@@ -353,16 +353,34 @@ def log_sf(fam, x: int) -> float:
     return math.log1p(-math.exp(_walk_log(fam, x - 1, -1)))
 
 
-def cdf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
-    """Arb ball containing ``Pr[X <= x]`` exactly."""
-    with ctx.workprec(max(prec, _WORK_PREC)):
+def _tail_ball(fam, x: int, lower: bool, walk) -> arb:
+    """``Pr[X <= x]`` (lower) or ``Pr[X >= x]`` as a ball, summing from the side away from the mode.
+
+    ``walk(start, direction)`` returns a ball for the tail that starts at ``start`` and runs in
+    ``direction`` (-1 down, +1 up); when ``x`` lies past the mode the complement of the other tail is used.
+    Call inside the working-precision context.
+    """
+    if lower:
         if x < fam.lo:
             return arb(0)
         if x >= fam.hi:
             return arb(1)
         if fam.mode_side(x) < 0:
-            return _clip01(_walk_ball(fam, x, -1, prec))
-        return _clip01(1 - _walk_ball(fam, x + 1, +1, prec))
+            return _clip01(walk(x, -1))
+        return _clip01(1 - walk(x + 1, +1))
+    if x > fam.hi:
+        return arb(0)
+    if x <= fam.lo:
+        return arb(1)
+    if fam.mode_side(x) > 0:
+        return _clip01(walk(x, +1))
+    return _clip01(1 - walk(x - 1, -1))
+
+
+def cdf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
+    """Arb ball containing ``Pr[X <= x]`` exactly."""
+    with ctx.workprec(max(prec, _WORK_PREC)):
+        return _tail_ball(fam, x, True, lambda start, d: _walk_ball(fam, start, d, prec))
 
 
 def cdf_ball_of_walk(fam, x: int, w: _Walk, log_start: arb, prec: int = _WORK_PREC) -> arb:
@@ -381,33 +399,13 @@ def cdf_ball_of_walk(fam, x: int, w: _Walk, log_start: arb, prec: int = _WORK_PR
 def sf_ball(fam, x: int, prec: int = _WORK_PREC) -> arb:
     """Arb ball containing ``Pr[X >= x]`` exactly."""
     with ctx.workprec(max(prec, _WORK_PREC)):
-        if x > fam.hi:
-            return arb(0)
-        if x <= fam.lo:
-            return arb(1)
-        if fam.mode_side(x) > 0:
-            return _clip01(_walk_ball(fam, x, +1, prec))
-        return _clip01(1 - _walk_ball(fam, x - 1, -1, prec))
+        return _tail_ball(fam, x, False, lambda start, d: _walk_ball(fam, start, d, prec))
 
 
 def tail_arb_reference(fam, x: int, lower: bool, prec: int) -> arb:
     """Ball for ``Pr[X <= x]`` (lower) or ``Pr[X >= x]`` summed entirely in arb at ``prec`` bits."""
     with ctx.workprec(prec):
-        if lower:
-            if x < fam.lo:
-                return arb(0)
-            if x >= fam.hi:
-                return arb(1)
-            if fam.mode_side(x) < 0:
-                return _clip01(_walk_arb(fam, x, -1, prec))
-            return _clip01(1 - _walk_arb(fam, x + 1, +1, prec))
-        if x > fam.hi:
-            return arb(0)
-        if x <= fam.lo:
-            return arb(1)
-        if fam.mode_side(x) > 0:
-            return _clip01(_walk_arb(fam, x, +1, prec))
-        return _clip01(1 - _walk_arb(fam, x - 1, -1, prec))
+        return _tail_ball(fam, x, lower, lambda start, d: _walk_arb(fam, start, d, prec))
 
 
 def _clip01(b: arb) -> arb:
