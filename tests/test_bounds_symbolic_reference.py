@@ -273,7 +273,8 @@ def test_tail_check_detects_a_too_small_deviation():
 
 # ---- forms checked symbolically against their published statements ---------------------------------------
 def test_random_sampling_equals_published_form():
-    # Tomamichel, Lim, Gisin, Renner, Nat. Commun. 3, 634 (2012): exp(-2 mu^2 n k^2 / ((n+k)(k+1))) (from memory)
+    # Tomamichel, Lim, Gisin, Renner, Nat. Commun. 3, 634 (2012): exp(-2 mu^2 n k^2 / ((n+k)(k+1))), the
+    # eps^2 of their Lemma 3 (S14)-(S15), checked in a stored copy of arXiv:1103.4130 (proof note)
     b = fb.get("random_sampling")
     n, k, mu = (b.symbols[x] for x in ("key_bits", "test_bits", "mu"))
     assert sp.simplify(b.failure_probability_expr - sp.exp(-2 * mu**2 * n * k**2 / ((n + k) * (k + 1)))) == 0

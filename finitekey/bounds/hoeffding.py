@@ -11,7 +11,9 @@ and the same for :math:`\\mu - \\bar X`.  The closed-form inverse
 References
 ----------
 .. [1] W. Hoeffding, "Probability inequalities for sums of bounded random
-   variables", J. Amer. Statist. Assoc. 58 (1963) 13-30.
+   variables", J. Amer. Statist. Assoc. 58 (1963) 13-30, Theorem 2 (theorem
+   number and form as stated by secondary sources; the paper itself was not
+   available, see proofs_notes/bounds/hoeffding.md).
 """
 
 import sympy as sp

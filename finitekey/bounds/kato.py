@@ -10,7 +10,10 @@ papers,
           \\le \\exp\\!\\left(-\\frac{2 (b^2 - a^2)}{(1 + \\frac{4a}{3\\sqrt n})^2}\\right).
 
 **From memory** (the statement could not be confirmed from a stored copy of the
-paper): the exact form above and the conditions.  This module additionally
+paper; searched again, only its abstract and introduction were found, which confirm
+the setting -- conditional expectations given the past against observed values,
+sharpened by parameters predicted in advance -- but not the formula): the exact form
+above, the constant 4/3 and the conditions.  This module additionally
 requires :math:`1 + 4a/(3\\sqrt n) > 0` (``a > -3 sqrt(n) / 4``), a conservative
 restriction under which the right-hand side is a decreasing function of ``b``.
 Tests check the statement against exact binomial tails (independent rounds) and

@@ -13,10 +13,18 @@ population of ``n + k`` bits, and
 :math:`\\lambda_n - \\lambda_k = \\tfrac{n+k}{k}(\\lambda_n - \\lambda_{n+k})`, so the event is
 Serfling's with deviation :math:`k\\mu/(n+k)`.  See proofs_notes/bounds/random_sampling.md.
 
+Checked against a stored copy of [1] (arXiv:1103.4130, Supplementary Note 2, Lemma 3, Eqs.
+(S14)-(S15)): the paper's deviation
+:math:`\\mu(\\varepsilon) = \\sqrt{\\tfrac{n+k}{nk}\\tfrac{k+1}{k}\\ln(1/\\varepsilon)}` fails
+with probability at most :math:`\\varepsilon^2`, i.e. it is this bound's deviation at failure
+probability :math:`\\varepsilon^2` (the square because :math:`\\varepsilon` is used as a
+purified-distance smoothing parameter).
+
 References
 ----------
 .. [1] M. Tomamichel, C. C. W. Lim, N. Gisin, R. Renner, "Tight finite-key
-   analysis for quantum cryptography", Nat. Commun. 3 (2012) 634.
+   analysis for quantum cryptography", Nat. Commun. 3 (2012) 634, arXiv:1103.4130,
+   Supplementary Note 2.
 .. [2] R. J. Serfling, Ann. Statist. 2 (1974) 39-48.
 """
 

@@ -13,7 +13,9 @@ and the same for :math:`\\mu_N - \\bar X_n` (apply it to the values
 References
 ----------
 .. [1] R. J. Serfling, "Probability inequalities for the sum in sampling
-   without replacement", Ann. Statist. 2 (1974) 39-48, Corollary 1.1.
+   without replacement", Ann. Statist. 2 (1974) 39-48, Corollary 1.1 (the form
+   matches secondary statements and its use in Tomamichel et al. 2012; the
+   corollary number is from memory, see proofs_notes/bounds/serfling.md).
 """
 
 import numpy as np
