@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Callable, Sequence
 
 import mpmath
@@ -114,6 +114,9 @@ _ARB_NAMESPACE = {
 class CompiledExpression:
     """A sympy expression with its three compiled evaluators.
 
+    Each evaluator is generated on its first use (``lambdify`` costs milliseconds per expression, and most
+    callers use one or two of the three), then kept.
+
     Attributes
     ----------
     expr : sympy.Expr
@@ -124,9 +127,23 @@ class CompiledExpression:
 
     expr: sp.Expr
     symbols: tuple
-    _numpy: Callable = field(repr=False)
-    _mp: Callable = field(repr=False)
-    _arb: Callable = field(repr=False)
+
+    @functools.cached_property
+    def _numpy(self) -> Callable:
+        np_expr, np_symbols = _numpy_form(self.expr, self.symbols)
+        # The numpy module itself, not the name "numpy": the name makes sympy run ``from numpy import *``, which
+        # loads numpy's lazy submodules (f2py, testing, ...) and costs about 0.1 s the first time.
+        fn = sp.lambdify(np_symbols, np_expr, modules=[np], cse=True)
+        fn.__doc__ = f"Compiled from the sympy expression:\n\n    {self.expr}\n\n(float64 form: {np_expr})\n"
+        return fn
+
+    @functools.cached_property
+    def _mp(self) -> Callable:
+        return sp.lambdify(self.symbols, self.expr, modules="mpmath")
+
+    @functools.cached_property
+    def _arb(self) -> Callable:
+        return sp.lambdify(self.symbols, self.expr, modules=[_ARB_NAMESPACE, "mpmath"])
 
     def numpy(self, *args):
         """Evaluate in float64; arguments broadcast as numpy arrays.
@@ -188,12 +205,7 @@ def _numpy_form(expr: sp.Expr, symbols: tuple):
 
 @functools.lru_cache(maxsize=None)
 def _compile(expr: sp.Expr, symbols: tuple) -> CompiledExpression:
-    np_expr, np_symbols = _numpy_form(expr, symbols)
-    np_fn = sp.lambdify(np_symbols, np_expr, modules="numpy", cse=True)
-    np_fn.__doc__ = f"Compiled from the sympy expression:\n\n    {expr}\n\n(float64 form: {np_expr})\n"
-    mp_fn = sp.lambdify(symbols, expr, modules="mpmath")
-    arb_fn = sp.lambdify(symbols, expr, modules=[_ARB_NAMESPACE, "mpmath"])
-    return CompiledExpression(expr, symbols, np_fn, mp_fn, arb_fn)
+    return CompiledExpression(expr, symbols)
 
 
 def compile_expression(expr: sp.Expr, symbols: Sequence[sp.Symbol]) -> CompiledExpression:

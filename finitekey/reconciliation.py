@@ -42,7 +42,6 @@ from dataclasses import dataclass
 import numpy as np
 import sympy as sp
 from flint import arb, ctx
-from scipy.special import ndtri
 
 from .compile import compile_expression, to_arb
 from .domains import COUNT, Domain
@@ -162,6 +161,8 @@ class SecondOrderLeakage(LeakageModel):
         EFFICIENCY_DOMAIN.check("ec_efficiency", self.efficiency)
 
     def _quantile(self) -> float:
+        from scipy.special import ndtri  # here, not at module top: scipy.special adds about 0.2 s to every start-up
+
         return float(ndtri(1.0 - self.frame_error_rate))
 
     def bits(self, n, q):

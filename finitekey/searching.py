@@ -28,7 +28,6 @@ import math
 from typing import Callable, Sequence
 
 import numpy as np
-from scipy import optimize
 
 __all__ = ["maximize_box", "golden_max", "smallest_passing"]
 
@@ -83,6 +82,8 @@ def maximize_box(f: Callable, bounds: Sequence[tuple], grid: Sequence[int], *, p
     for j in range(free.size):  # a vertex stuck on the boundary: step inwards instead
         if np.array_equal(simplex[j + 1], y0):
             simplex[j + 1] = np.clip(y0 - np.eye(free.size)[j] * step[j] * 0.5, lo[free], hi[free])
+    from scipy import optimize  # here, not at module top: it adds about 0.2 s to every start-up
+
     res = optimize.minimize(neg, y0, method="Nelder-Mead",
                             options={"initial_simplex": np.array(simplex), "xatol": xatol, "fatol": 1e-9,
                                      "maxiter": maxiter})

@@ -35,7 +35,6 @@ import mpmath
 import numpy as np
 import sympy as sp
 from flint import ctx
-from scipy import optimize
 
 from ..compile import CompiledExpression, Enclosure, compile_expression, to_arb
 from ..domains import PROBABILITY, Parameter
@@ -398,6 +397,8 @@ class SymbolicBound(Bound):
             return lo
         if g(hi) > 0:
             raise ComputationError(f"{self.name}: no deviation in [{lo}, {hi}] reaches eps = {eps}")
+        from scipy import optimize  # here, not at module top: it adds about 0.2 s to every start-up
+
         return optimize.brentq(g, lo, hi, xtol=1e-300, rtol=4 * np.finfo(float).eps, maxiter=500)
 
     def _deviation_mp(self, eps, params, dps):

@@ -37,7 +37,6 @@ from fractions import Fraction
 import mpmath
 import numpy as np
 from flint import arb, ctx
-from scipy import special
 
 from ..compile import Enclosure
 from ..domains import Domain, Parameter
@@ -107,6 +106,8 @@ def _upper_limit_parts(x, n, eps):
     eps = EPS.check(eps)
     xa, na = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
     full = xa >= na
+    from scipy import special  # here, not at module top: scipy.special adds about 0.2 s to every start-up
+
     with np.errstate(all="ignore"):
         p0 = special.betainccinv(xa + 1.0, np.where(full, 1.0, na - xa), eps)
     p0 = np.where(full, 1.0, p0)
@@ -128,6 +129,8 @@ def binomial_lower_limit(x, n, eps):
     eps = EPS.check(eps)
     xa, na = np.asarray(x, dtype=float), np.asarray(n, dtype=float)
     zero = xa <= 0
+    from scipy import special  # here, not at module top: scipy.special adds about 0.2 s to every start-up
+
     with np.errstate(all="ignore"):
         out = special.betaincinv(np.where(zero, 1.0, xa), na - xa + 1.0, eps)
     out = np.where(zero, 0.0, out)

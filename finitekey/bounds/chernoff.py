@@ -40,7 +40,6 @@ import mpmath
 import numpy as np
 import sympy as sp
 from flint import arb, ctx
-from scipy import special
 from sympy.utilities.lambdify import implemented_function
 
 from ..compile import compile_expression, to_arb
@@ -58,6 +57,8 @@ _SERIES_RADIUS = 0.1
 
 
 def _bennett_h_float(x):
+    from scipy import special  # here, not at module top: scipy.special adds about 0.2 s to every start-up
+
     x = np.asarray(x, dtype=float)
     with np.errstate(all="ignore"):
         direct = special.xlog1py(1.0 + x, x) - x

@@ -31,11 +31,11 @@ References
 from __future__ import annotations
 
 import math
+from statistics import NormalDist
 
 import mpmath
 import numpy as np
 from flint import arb, ctx
-from scipy import special
 
 from ..compile import Enclosure
 from ..domains import Domain, Parameter
@@ -164,7 +164,7 @@ class _Probe:
 def _guess(n, k, e, eps) -> float:
     """Normal approximation (with finite-population correction) to T_u; only a starting point."""
     N = n + k
-    z = max(-float(special.ndtri(eps)), 0.0)
+    z = max(-NormalDist().inv_cdf(eps), 0.0)  # the standard library's normal quantile: no scipy import
     f = max((N - k) / max(N - 1, 1), 1e-12)
     c = z * z * k * f
     ep = e + 0.5

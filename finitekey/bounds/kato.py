@@ -36,7 +36,6 @@ import math
 
 import numpy as np
 import sympy as sp
-from scipy import optimize
 
 from ..domains import Domain, Parameter
 from ..errors import InputError
@@ -177,6 +176,8 @@ def kato_choose_a(n, expected, eps, direction: str = "upper") -> float:
     s = 1.0 if direction == "upper" else -1.0
     lo = -0.75 * math.sqrt(n) * (1 - 1e-9)
     hi = 10.0 * (math.sqrt(n) + math.sqrt(-math.log(eps)) + 1.0)
+    from scipy import optimize  # here, not at module top: it adds about 0.2 s to every start-up
+
     res = optimize.minimize_scalar(lambda a: _width(n, m, a, eps, s), bounds=(lo, hi), method="bounded",
                                    options={"xatol": 1e-10 * (1 + abs(hi))})
     return float(res.x)

@@ -55,7 +55,7 @@ RANDOM_SAMPLING = register(SymbolicBound(
     ],
     deviation_parameter=Parameter("mu", r"\mu", Domain(0, float("inf"), lower_open=True),
                                   "excess of the key-bit error rate over the test-bit error rate (a fraction)"),
-    failure_probability=sp.simplify(_TAIL),
+    failure_probability=_TAIL,
     references=[
         Reference("tomamichel2012", "M. Tomamichel, C. C. W. Lim, N. Gisin, R. Renner, Nat. Commun. 3, 634 (2012)",
                   "10.1038/ncomms1631"),

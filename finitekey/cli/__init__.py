@@ -1,7 +1,11 @@
 """Command-line entry point: parse, call the API, render.
 
-Each sub-command lives in its own module of this package with ``NAME``,
-``HELP``, ``add_arguments(parser)`` and ``run(args) -> int``.  User errors
+Each sub-command lives in its own module of this package as an object with
+``NAME``, ``add_arguments(parser)`` and ``run(args) -> int``; the table
+:data:`SUBCOMMANDS` below names each module and its one-line help.  Only the
+module of the sub-command being run is imported (``finitekey --help`` imports
+none of them), so that start-up does not pay for sympy, scipy.optimize or
+matplotlib unless the sub-command uses them.  User errors
 (:class:`~finitekey.errors.InputError`) print one line to stderr and exit
 with status 2, never a traceback.
 """
@@ -9,33 +13,111 @@ with status 2, never a traceback.
 from __future__ import annotations
 
 import argparse
+import importlib
 import sys
+from typing import NamedTuple
 
 from .. import __version__
 from ..errors import ComputationError, InputError
-from . import blocksize_cmd, bounds_cmd, design_cmd, keylength_cmd
-from . import plot_cmd, report_cmd, table_cmd
-
-COMMANDS = [bounds_cmd.LIST, bounds_cmd.EVAL, keylength_cmd.COMMAND, design_cmd.COMMAND, blocksize_cmd.COMMAND]
-COMMANDS += [table_cmd.TABLE, plot_cmd.PLOT, report_cmd.REPORT]  # sweeps, plots, reports
 
 
-def build_parser() -> argparse.ArgumentParser:
+class SubCommand(NamedTuple):
+    """One sub-command: its name, the module and attribute holding it, and its one-line help."""
+
+    name: str
+    module: str
+    attribute: str
+    help: str
+
+
+#: Every sub-command, in the order ``finitekey --help`` lists them.
+SUBCOMMANDS = (
+    SubCommand("bounds", "bounds_cmd", "LIST", "list the registered finite-size bounds"),
+    SubCommand("bound", "bounds_cmd", "EVAL",
+               "evaluate one bound: deviation for a failure probability, or the reverse"),
+    SubCommand("keylength", "keylength_cmd", "COMMAND",
+               "certified secret key length of an observed block (or a batch, or a stream on stdin)"),
+    SubCommand("design", "design_cmd", "COMMAND", "choose basis bias, test fraction and epsilon split for a scenario"),
+    SubCommand("blocksize", "blocksize_cmd", "COMMAND", "smallest block size reaching a key target, with its design"),
+    SubCommand("table", "table_cmd", "TABLE",
+               "parameter table over a grid of scenarios (design, fixed or block size)"),
+    SubCommand("plot", "plot_cmd", "PLOT", "plot key rate, smallest block size or the epsilon ledger"),
+    SubCommand("report", "report_cmd", "REPORT", "self-contained offline HTML report (and optional LaTeX fragment)"),
+)
+
+
+def load_subcommand(entry: SubCommand):
+    """Import the module of one sub-command and return its command object (``NAME``, ``add_arguments``, ``run``).
+
+    Parameters
+    ----------
+    entry : SubCommand
+        A row of :data:`SUBCOMMANDS`.
+
+    Returns
+    -------
+    object
+        The command object; its ``NAME`` equals ``entry.name``.
+    """
+    module = importlib.import_module(f"{__name__}.{entry.module}")
+    return getattr(module, entry.attribute)
+
+
+def _chosen(argv) -> str | None:
+    """The sub-command named on the command line (the first argument not starting with '-'), if any."""
+    for arg in argv:
+        if not arg.startswith("-"):
+            return arg
+        if arg == "--":
+            return None
+    return None
+
+
+def build_parser(argv=None) -> argparse.ArgumentParser:
+    """The argument parser; only the sub-command named in ``argv`` gets its arguments (and its imports).
+
+    Parameters
+    ----------
+    argv : list of str or None
+        The command line without the program name (default ``sys.argv[1:]``).  With ``argv=[]`` or ``--help``
+        no sub-command module is imported.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+    """
+    argv = sys.argv[1:] if argv is None else list(argv)
+    chosen = _chosen(argv)
     parser = argparse.ArgumentParser(
         prog="finitekey",
         description="Finite-key security parameters for QKD: epsilon budgets, block sizes, parameter design, "
                     "certified key lengths. Design aid only; see the cautions in every output.")
     parser.add_argument("--version", action="version", version=f"finitekey {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for cmd in COMMANDS:
-        p = sub.add_parser(cmd.NAME, help=cmd.HELP, description=cmd.HELP)
-        cmd.add_arguments(p)
-        p.set_defaults(_run=cmd.run)
+    for entry in SUBCOMMANDS:
+        p = sub.add_parser(entry.name, help=entry.help, description=entry.help)
+        if entry.name == chosen:
+            cmd = load_subcommand(entry)
+            cmd.add_arguments(p)
+            p.set_defaults(_run=cmd.run)
     return parser
 
 
 def main(argv=None) -> int:
-    parser = build_parser()
+    """Run the command line ``argv`` (default ``sys.argv[1:]``) and return the exit status.
+
+    Parameters
+    ----------
+    argv : list of str or None
+        Arguments without the program name.
+
+    Returns
+    -------
+    int
+        0 on success, 2 for bad input (one line on stderr), 3 when a computation failed, 130 on interrupt.
+    """
+    argv = sys.argv[1:] if argv is None else list(argv)
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     if getattr(args, "_run", None) is None:
         parser.print_help()

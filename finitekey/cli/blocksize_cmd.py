@@ -38,5 +38,4 @@ def _run(args) -> int:
     return 0
 
 
-COMMAND = SimpleNamespace(NAME="blocksize", HELP="smallest block size reaching a key target, with its design",
-                          add_arguments=_args, run=_run)
+COMMAND = SimpleNamespace(NAME="blocksize", add_arguments=_args, run=_run)

@@ -107,7 +107,5 @@ def _eval_run(args) -> int:
     return 0
 
 
-LIST = SimpleNamespace(NAME="bounds", HELP="list the registered finite-size bounds", add_arguments=_list_args,
-                       run=_list_run)
-EVAL = SimpleNamespace(NAME="bound", HELP="evaluate one bound: deviation for a failure probability, or the reverse",
-                       add_arguments=_eval_args, run=_eval_run)
+LIST = SimpleNamespace(NAME="bounds", add_arguments=_list_args, run=_list_run)
+EVAL = SimpleNamespace(NAME="bound", add_arguments=_eval_args, run=_eval_run)

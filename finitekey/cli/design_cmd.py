@@ -106,5 +106,4 @@ def _run(args) -> int:
     return 0
 
 
-COMMAND = SimpleNamespace(NAME="design", HELP="choose basis bias, test fraction and epsilon split for a scenario",
-                          add_arguments=_args, run=_run)
+COMMAND = SimpleNamespace(NAME="design", add_arguments=_args, run=_run)

@@ -137,5 +137,4 @@ def _run(args) -> int:
     return 0
 
 
-COMMAND = SimpleNamespace(NAME="keylength", HELP="certified secret key length of an observed block (or a batch)",
-                          add_arguments=_args, run=_run)
+COMMAND = SimpleNamespace(NAME="keylength", add_arguments=_args, run=_run)

@@ -61,5 +61,4 @@ def _run(args) -> int:
     return 0
 
 
-PLOT = SimpleNamespace(NAME="plot", HELP="plot key rate, smallest block size or the epsilon ledger",
-                       add_arguments=_args, run=_run)
+PLOT = SimpleNamespace(NAME="plot", add_arguments=_args, run=_run)

@@ -46,5 +46,4 @@ def _run(args) -> int:
     return 0
 
 
-REPORT = SimpleNamespace(NAME="report", HELP="self-contained offline HTML report (and optional LaTeX fragment)",
-                         add_arguments=_args, run=_run)
+REPORT = SimpleNamespace(NAME="report", add_arguments=_args, run=_run)

@@ -99,5 +99,4 @@ def _run(args) -> int:
     return 0
 
 
-TABLE = SimpleNamespace(NAME="table", HELP="parameter table over a grid of scenarios (design, fixed or block size)",
-                        add_arguments=_args, run=_run)
+TABLE = SimpleNamespace(NAME="table", add_arguments=_args, run=_run)

@@ -25,7 +25,6 @@ import math
 
 import numpy as np
 from flint import arb, ctx
-from scipy import special
 
 from ..bounds.binomial_exact import (binomial_lower_limit_certified, binomial_upper_limit_certified)
 from ..bounds.chernoff import (expectation_lower, expectation_lower_certified, expectation_upper,
@@ -100,6 +99,8 @@ def count_interval_float(method: str, observed, total, eps):
         d = np.sqrt(C / 2.0 * np.log(1.0 / eps))
         return c - d, c + d
     if method == "exact":
+        from scipy import special  # here, not at module top: scipy.special adds about 0.2 s to every start-up
+
         with np.errstate(all="ignore"):
             cc = np.clip(c, 0.0, C)
             up = C * special.betainccinv(cc + 1.0, np.maximum(C - cc, 1e-300), eps)

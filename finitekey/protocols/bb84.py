@@ -50,6 +50,7 @@ from __future__ import annotations
 import enum
 import functools
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from fractions import Fraction
 
@@ -165,22 +166,50 @@ def _serfling_mu_expr():
     return rs.deviation_expr.xreplace({sym["key_bits"]: S_n, sym["test_bits"]: S_k, sym["eps"]: S_eps_s ** 2})
 
 
+def _phi_serfling():
+    return S_e / S_k + _serfling_mu_expr()
+
+
+#: How each compiled form is built.  Each is built on first use only: the Serfling forms need ``sympy.solve``
+#: (about 0.5 s), which a key length with the exact statistics never uses.
+_BUILDERS = {
+    "serfling": lambda: compile_expression(key_length_expr(S_n, _phi_serfling(), S_c, S_leak, S_tag, S_eps_pa),
+                                           (S_n, S_k, S_e, S_c, S_leak, S_tag, S_eps_s, S_eps_pa)),
+    "serfling_phi": lambda: compile_expression(_phi_serfling(), (S_n, S_k, S_e, S_eps_s)),
+    "exact": lambda: compile_expression(key_length_expr(S_n, S_E / S_n, S_c, S_leak, S_tag, S_eps_pa),
+                                        (S_n, S_E, S_c, S_leak, S_tag, S_eps_pa)),
+    "exact0": lambda: compile_expression(key_length_expr(S_n, 0, S_c, S_leak, S_tag, S_eps_pa),
+                                         (S_n, S_c, S_leak, S_tag, S_eps_pa)),
+    "hmin": lambda: compile_expression(min_entropy_expr(S_n, S_phi, S_c), (S_n, S_phi, S_c)),
+    "hash": lambda: compile_expression(hash_penalty_expr(S_eps_pa), (S_eps_pa,)),
+    "mu": lambda: compile_expression(_serfling_mu_expr(), (S_n, S_k, S_eps_s)),
+}
+
+
+@functools.lru_cache(maxsize=None)
+def _compiled_form(name: str):
+    return _BUILDERS[name]()
+
+
+class _CompiledForms(Mapping):
+    """Read-only mapping name -> compiled form of the formula; each form is compiled once, on first access."""
+
+    def __getitem__(self, name):
+        if name not in _BUILDERS:
+            raise KeyError(name)
+        return _compiled_form(name)
+
+    def __iter__(self):
+        return iter(_BUILDERS)
+
+    def __len__(self):
+        return len(_BUILDERS)
+
+
 @functools.lru_cache(maxsize=None)
 def _compiled():
-    """Compile the formula for both statistics methods (once; the result is immutable)."""
-    mu = _serfling_mu_expr()
-    phi_serf = S_e / S_k + mu
-    serf = compile_expression(key_length_expr(S_n, phi_serf, S_c, S_leak, S_tag, S_eps_pa),
-                              (S_n, S_k, S_e, S_c, S_leak, S_tag, S_eps_s, S_eps_pa))
-    serf_phi = compile_expression(phi_serf, (S_n, S_k, S_e, S_eps_s))
-    exact = compile_expression(key_length_expr(S_n, S_E / S_n, S_c, S_leak, S_tag, S_eps_pa),
-                               (S_n, S_E, S_c, S_leak, S_tag, S_eps_pa))
-    exact0 = compile_expression(key_length_expr(S_n, 0, S_c, S_leak, S_tag, S_eps_pa),
-                                (S_n, S_c, S_leak, S_tag, S_eps_pa))
-    hmin = compile_expression(min_entropy_expr(S_n, S_phi, S_c), (S_n, S_phi, S_c))
-    hpen = compile_expression(hash_penalty_expr(S_eps_pa), (S_eps_pa,))
-    return {"serfling": serf, "serfling_phi": serf_phi, "exact": exact, "exact0": exact0, "hmin": hmin,
-            "hash": hpen, "mu": compile_expression(mu, (S_n, S_k, S_eps_s))}
+    """The compiled forms of the formula for both statistics methods (each compiled on first use; immutable)."""
+    return _CompiledForms()
 
 
 FORMULA_LATEX = (r"\ell = \left\lfloor " + sp.latex(key_length_expr(

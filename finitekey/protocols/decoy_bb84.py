@@ -58,7 +58,6 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 from flint import arb, ctx
-from scipy import optimize as _opt
 
 from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
@@ -747,6 +746,8 @@ def optimal_gllp_rate(model: LinkModel, ec_efficiency: float, sifting: float = 0
     if vals[i] <= 0:
         return 0.0, float(grid[i])
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+    from scipy import optimize as _opt  # here, not at module top: it adds about 0.2 s to every start-up
+
     res = _opt.minimize_scalar(lambda m: -float(gllp_rate(model, m, ec_efficiency, sifting)), bounds=(lo, hi),
                                method="bounded", options={"xatol": 1e-7})
     return float(-res.fun), float(res.x)
