@@ -115,17 +115,17 @@ def test_reach_grows_with_block_and_default_beats_reference():
     h6 = DD.reach(_scenario(N=1e6), "hoeffding")
     h8 = DD.reach(_scenario(N=1e8), "hoeffding")
     r8 = DD.reach(_scenario(N=1e8))
-    assert r6["reach_km"] > h6["reach_km"] + 10.0
-    assert h8["reach_km"] < r8["reach_km"]
-    assert r6["reach_km"] < r8["reach_km"]
+    assert r6.reach_km > h6.reach_km + 10.0
+    assert h8.reach_km < r8.reach_km
+    assert r6.reach_km < r8.reach_km
     # just beyond the reach there is no key
-    beyond = DD.design(_scenario(L=r8["reach_km"] + 2.0, N=1e8))
+    beyond = DD.design(_scenario(L=r8.reach_km + 2.0, N=1e8))
     assert beyond.expected.secret_key_length == 0
 
 
 def test_reach_brackets_the_key_region():
     res = DD.reach(_scenario(N=1e10), "hoeffding", tolerance_km=1.0)
-    L = res["reach_km"]
+    L = res.reach_km
     assert 140.0 < L < 200.0
     assert DD.design(_scenario(L=L, N=1e10), "hoeffding").expected.secret_key_length > 0
     assert DD.design(_scenario(L=L + 3.0, N=1e10), "hoeffding").expected.secret_key_length == 0

@@ -28,12 +28,13 @@ def _run(args) -> int:
     if args.json:
         print(to_json(res.to_dict()))
         return 0
-    rows = [["target", str(res.target), ""], ["smallest block", fmt(int(res.size)), res.size_kind]]
+    rows = [["target", str(res.target), ""], ["smallest block", fmt(int(res.size)), res.size_kind],
+            ["status", res.status.text(), ""]]
     if getattr(res, "resolution", 1) > 1:
         rows.append(["search resolution", fmt(int(res.resolution)), res.size_kind])
     print(table(rows, ["quantity", "value", "unit"]))
     print("\nDesign at that size:")
-    print(render_design(res.design))
+    print(render_design(res.design, args.scenario))
     print("\n" + caution_block())
     return 0
 

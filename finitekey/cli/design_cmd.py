@@ -16,7 +16,7 @@ from ..optimize.dispatch import scenario_from_dict
 from .keylength_cmd import render_ledger
 from .render import caution_block, fmt, table, to_json
 
-__all__ = ["COMMAND", "load_scenario", "render_design"]
+__all__ = ["COMMAND", "load_scenario", "render_design", "render_reach", "status_line"]
 
 
 def load_scenario(path):
@@ -57,17 +57,34 @@ def render_scenario(scenario: dict) -> str:
     return "\n".join(lines)
 
 
+def status_line(status) -> str:
+    """``Status: key`` or ``Status: NO KEY -- reason; detail`` (one line)."""
+    if status.key:
+        return "Status: key" + (f" ({status.detail})" if status.detail else "")
+    return "Status: NO KEY -- " + status.text().removeprefix("no key: ")
+
+
 def render_design(d, source: str | None = None) -> str:
+    """Text of a design: scenario echo, status, chosen parameters (only when there is a key), rates, ledger.
+
+    ``source`` names the scenario file; None means the built-in default scenario.
+    """
     head = [f"Scenario ({source or 'built-in default scenario'}):", render_scenario(d.scenario), ""] \
         if getattr(d, "scenario", None) else []
+    head.append(status_line(d.status))
     rows = []
-    for k, v in d.parameters.items():  # a nested mapping (e.g. the epsilon split) gets one row per entry
-        items = v.items() if isinstance(v, dict) else [(None, v)]
-        rows += [["parameter: " + k + ("" if sub is None else "." + sub), _value(x), ""] for sub, x in items]
-    rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
-             for k, v in d.expected_counts.items()]
+    if d.status.key:
+        for k, v in d.parameters.items():  # a nested mapping (e.g. the epsilon split) gets one row per entry
+            items = v.items() if isinstance(v, dict) else [(None, v)]
+            rows += [["parameter: " + k + ("" if sub is None else "." + sub), _value(x), ""] for sub, x in items]
+        rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
+                 for k, v in d.expected_counts.items()]
+    else:
+        head.append("No parameters are chosen: the search found none that gives a key (the last point tried is "
+                    "in the --json output under parameters_tried).")
     rows.append(["secret key length", d.expected.secret_key_length, "bits per block"])
-    rows.append(["secret key rate", fmt(d.secret_key_rate_per_signal), "bits per signal"])
+    if d.secret_key_rate_per_signal is not None:
+        rows.append(["secret key rate", fmt(d.secret_key_rate_per_signal), "bits per signal"])
     if getattr(d, "secret_key_rate_per_detection", None) is not None:
         rows.append(["secret key rate", fmt(d.secret_key_rate_per_detection), "bits per detection"])
     if getattr(d, "asymptotic_rate_per_detection", None) is not None:
@@ -79,9 +96,28 @@ def render_design(d, source: str | None = None) -> str:
     for k, (label, unit) in _DIAGNOSTICS.items():
         if k in d.diagnostics:
             rows.append([label, fmt(d.diagnostics[k]), unit])
-    return "\n".join(head + [f"Design ({d.protocol}, statistics {d.expected.statistics})",
-                      table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
-                      render_ledger(d.expected.ledger)])
+    title = f"Design ({d.protocol}, statistics {d.expected.statistics})" if d.status.key else \
+        f"No key ({d.protocol}, statistics {d.expected.statistics})"
+    return "\n".join(head + [title, table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
+                             render_ledger(d.expected.ledger)])
+
+
+def render_reach(r) -> str:
+    """Text of a :class:`~finitekey.protocols.ReachResult`: the distance only when the search found one."""
+    if r.reach_km is not None:
+        reach = f"{r.reach_km:.6g} km"
+    elif r.limit_reached:
+        reach = f"not found: key at the search limit {r.search_limit_km:g} km, the reach lies beyond it"
+    else:
+        reach = "none: no key even at 0 km"
+    rows = [["reach", reach], ["status", r.status.text()], ["statistics", r.statistics],
+            ["tolerance", f"{r.tolerance_km:g} km"], ["search limit", f"{r.search_limit_km:g} km"]]
+    d = r.to_dict()
+    label = "at the search limit" if r.limit_reached else "at the reach"
+    for k, v in d.items():
+        if k.endswith("_at_reach"):
+            rows.append([k.removesuffix("_at_reach").replace("_", " ") + " " + label, _value(v)])
+    return table(rows, ["quantity", "value"])
 
 
 def _run(args) -> int:
@@ -92,9 +128,9 @@ def _run(args) -> int:
             raise InputError("--reach", proto.name, "a link scenario (decoy-bb84); this protocol has no reach")
         out = reach(sc, args.statistics)
         if args.json:
-            print(to_json(out))
+            print(to_json(out.to_dict()))
         else:
-            print(table([[k, _value(v)] for k, v in out.items()], ["quantity", "value"]))
+            print(render_reach(out))
             print("\n" + caution_block())
         return 0
     d = proto.design(sc, args.statistics)

@@ -71,7 +71,7 @@ def _unit(name: str) -> str:
 def render_key_result(res) -> str:
     """Human-readable rendering of a KeyLengthResult (protocol independent)."""
     rows = [["protocol", res.protocol, ""], ["statistics", res.statistics, ""],
-            ["secret key length", res.secret_key_length, "bits"]]
+            ["secret key length", res.secret_key_length, "bits"], ["status", res.status.text(), ""]]
     for k, v in res.terms.items():
         rows.append([f"term: {k}", fmt(v), "bits"])
     for k, v in res.estimates.items():
@@ -131,8 +131,10 @@ def _run(args) -> int:
     rows = []
     for (line, _, block), res in zip(parsed, results):
         rows.append([line, getattr(block, "label", None) or "", res.protocol, res.statistics,
-                     res.secret_key_length, res.eps_sec, res.eps_cor])
-    print(table(rows, ["line", "label", "protocol", "statistics", "secret key (bits)", "eps_sec", "eps_cor"]))
+                     res.secret_key_length, res.eps_sec, res.eps_cor,
+                     "key" if res.status.key else "no key: " + res.status.reason.text])
+    print(table(rows, ["line", "label", "protocol", "statistics", "secret key (bits)", "eps_sec", "eps_cor",
+                       "status"]))
     print("\n" + caution_block())
     return 0
 

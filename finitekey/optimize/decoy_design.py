@@ -36,7 +36,8 @@ from scipy import optimize as _opt
 from ..errors import InputError
 from ..protocols import _decoy_analysis as A
 from ..protocols import decoy_bb84 as D
-from ..protocols._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult
+from ..protocols._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason,
+                                 ReachResult, Status, design_no_key)
 
 __all__ = ["DesignProblem", "design", "reach", "blocksize", "objective_problem"]
 
@@ -418,7 +419,17 @@ def _result(problem, theta, fval) -> DesignResult:
     return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
                         block_fill_time_s=sc.model.block_fill_time_s(sc.pulses), scenario=sc.as_dict(),
-                        diagnostics={"float_objective_bits": float(fval)})
+                        diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl))
+
+
+def _design_status(sc: D.DecoyScenario, kl) -> Status:
+    """Key; or no key beyond the threshold (zero asymptotic rate with infinitely many decoys and no sifting loss,
+    at the expected counts of this device model), or no positive design found within the search box."""
+    if kl.secret_key_length > 0:
+        return KEY
+    asym, _ = D.optimal_gllp_rate(sc.model, sc.ec_efficiency, sifting=1.0)
+    reason = NoKeyReason.THRESHOLD_EXCEEDED if asym <= 0 else NoKeyReason.NO_POSITIVE_DESIGN
+    return design_no_key(kl.status, reason)
 
 
 def _at_distance(scenario, L):
@@ -429,15 +440,26 @@ def _at_distance(scenario, L):
 
 
 def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tolerance_km: float = 0.1,
-          max_km: float = 1000.0) -> dict:
+          max_km: float = 1000.0) -> ReachResult:
     """Largest distance with a positive certified key (bisection on distance of the optimised key).
 
     Returns
     -------
-    dict
-        ``reach_km`` (0 if no key even at 0 km), ``statistics``, ``tolerance_km`` and, when there is a key,
-        the certified key length, rate and chosen parameters at that distance (``*_at_reach``).
+    ReachResult
+        ``reach_km`` to within ``tolerance_km`` with the design there; no distance (``reach_km`` None) and
+        ``limit_reached`` when there is a key even at ``max_km``; a no-key status (reason from the design at
+        0 km) when there is no key even at 0 km.
+
+    Raises
+    ------
+    InputError
+        If the link's loss does not grow with distance (``link.fiber_loss_db_per_km`` is 0): every distance
+        then has the same key and a reach is not defined.
     """
+    if not scenario.model.link.fiber_loss_db_per_km > 0:
+        raise InputError("link.fiber_loss_db_per_km", scenario.model.link.fiber_loss_db_per_km,
+                         "a positive fibre loss for a reach: with 0 dB/km the loss does not grow with distance, "
+                         "so every distance gives the same key (vary link.extra_loss_db instead)")
 
     def positive(L, warm):
         sc = _at_distance(scenario, L)
@@ -447,20 +469,21 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
         alt = []
         theta, fval = optimise(prob, alternatives=alt, warm=warm)
         res, th = _best_certified(prob, theta, fval, alt)
-        ok = res.expected.secret_key_length > 0
-        return ok, th, (res if ok else None)
+        return res.expected.secret_key_length > 0, th, res
 
     ok, warm, best = positive(0.0, None)
     if not ok:
-        return _reach_dict(0.0, None, statistics, tolerance_km)
+        return ReachResult(None, statistics, tolerance_km, max_km,
+                           Status.no_key(best.status.reason, "at 0 km: " + best.status.detail))
     lo, hi = 0.0, None
     step = 50.0
     while hi is None:
-        L = lo + step
-        if L > max_km:
-            hi = max_km
-            break
+        L = min(lo + step, max_km)
         ok, th, res = positive(L, warm)
+        if ok and L >= max_km:
+            return ReachResult(None, statistics, tolerance_km, max_km,
+                               Status(None, f"key at every distance tried up to the search limit {max_km:g} km; "
+                                            "the reach lies beyond it"), limit_reached=True, at_reach=res)
         if ok:
             lo, warm, best = L, th, res
             step *= 2
@@ -473,20 +496,7 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
             lo, warm, best = mid, th, res
         else:
             hi = mid
-    return _reach_dict(lo, best, statistics, tolerance_km)
-
-
-def _reach_dict(reach_km, best, statistics, tolerance_km) -> dict:
-    out = {"reach_km": float(reach_km), "statistics": statistics, "tolerance_km": tolerance_km}
-    if best is None:
-        return out
-    p = best.parameters
-    out.update({"secret_key_length_at_reach": int(best.expected.secret_key_length),
-                "secret_key_rate_per_pulse_at_reach": float(best.secret_key_rate_per_signal),
-                "intensities_at_reach": list(p["intensities"]),
-                "intensity_probabilities_at_reach": list(p["intensity_probabilities"]),
-                "key_basis_probability_at_reach": float(p["key_basis_probability"])})
-    return out
+    return ReachResult(lo, statistics, tolerance_km, max_km, KEY, at_reach=best)
 
 
 def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = D.DEFAULT_STATISTICS,

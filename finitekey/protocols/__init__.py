@@ -10,10 +10,11 @@ every protocol.
 from __future__ import annotations
 
 from ._registry import all_protocols, get, names, register
-from ._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult
+from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult,
+                      NoKeyReason, ReachResult, Status)
 
 __all__ = ["register", "get", "names", "all_protocols", "KeyLengthResult", "DesignResult", "BlockTarget",
-           "BlockTargetKind", "BlockSizeResult", "DEFAULT_PROTOCOL"]
+           "BlockTargetKind", "BlockSizeResult", "ReachResult", "NoKeyReason", "Status", "KEY", "DEFAULT_PROTOCOL"]
 
 #: Protocol whose default scenario ``finitekey design`` uses when no file is given.
 DEFAULT_PROTOCOL = "decoy-bb84"

@@ -6,7 +6,11 @@
 * :class:`DesignResult` -- the free parameters chosen for a scenario and the
   key length expected with them;
 * :class:`BlockTarget` / :class:`BlockSizeResult` -- what a block must reach,
-  and the smallest block that reaches it.
+  and the smallest block that reaches it;
+* :class:`ReachResult` -- the largest distance with a key (link scenarios);
+* :class:`Status` / :class:`NoKeyReason` -- whether a result gives a key, and if
+  not, why (the reason the analysis found, plus a free-text detail).  Every
+  result type above carries one.
 
 Every type has ``to_dict()`` giving JSON-ready data (the command line's
 ``--json`` output).  Protocol modules may add optional fields with defaults.
@@ -26,7 +30,8 @@ from dataclasses import dataclass, field
 from ..budget import Ledger
 from ..errors import InputError
 
-__all__ = ["KeyLengthResult", "DesignResult", "BlockTargetKind", "BlockTarget", "BlockSizeResult"]
+__all__ = ["KeyLengthResult", "DesignResult", "BlockTargetKind", "BlockTarget", "BlockSizeResult", "ReachResult",
+           "NoKeyReason", "Status", "KEY"]
 
 
 def _finite(d: dict) -> dict:
@@ -40,6 +45,87 @@ def _finite(d: dict) -> dict:
         else:
             out[k] = float(v)
     return out
+
+
+class NoKeyReason(enum.Enum):
+    """Why a result gives no key (the value is the stable JSON text; :attr:`text` the sentence shown)."""
+
+    THRESHOLD_EXCEEDED = "threshold_exceeded"
+    PHASE_ERROR_BOUND = "phase_error_bound"
+    NO_SINGLE_PHOTON_BOUND = "no_single_photon_bound"
+    INCONSISTENT_BLOCK = "inconsistent_block"
+    PENALTIES_EXCEED_ENTROPY = "penalties_exceed_entropy"
+    BELOW_ONE_BIT = "below_one_bit"
+    BLOCK_TOO_SMALL = "block_too_small"
+    NO_POSITIVE_DESIGN = "no_positive_design"
+
+    @property
+    def text(self) -> str:
+        return _REASON_TEXT[self]
+
+
+_REASON_TEXT = {
+    NoKeyReason.THRESHOLD_EXCEEDED: "beyond the threshold: the asymptotic key rate of this channel is zero, so no "
+                                    "block size gives a key",
+    NoKeyReason.PHASE_ERROR_BOUND: "the phase-error upper bound reaches 1/2 (error rate above the threshold for "
+                                   "this block)",
+    NoKeyReason.NO_SINGLE_PHOTON_BOUND: "the decoy bounds certify no single-photon detections in one basis",
+    NoKeyReason.INCONSISTENT_BLOCK: "block inconsistent with the decoy model (its bounds contradict its own "
+                                    "totals)",
+    NoKeyReason.PENALTIES_EXCEED_ENTROPY: "error-correction leakage and the verification and hashing penalties "
+                                          "exceed the min-entropy",
+    NoKeyReason.BELOW_ONE_BIT: "the certified key-length formula is below one bit",
+    NoKeyReason.BLOCK_TOO_SMALL: "block too small: the expected counts leave no key or no test bits",
+    NoKeyReason.NO_POSITIVE_DESIGN: "no design with a positive key found within the search limits",
+}
+
+
+@dataclass(frozen=True)
+class Status:
+    """Whether a result gives a key; if not, the reason and a free-text detail (numbers, terms).
+
+    Attributes
+    ----------
+    reason : NoKeyReason or None
+        ``None`` when there is a key.
+    detail : str
+        What the analysis found (e.g. which term made the length non-positive); may be empty.
+    """
+
+    reason: NoKeyReason | None = None
+    detail: str = ""
+
+    @property
+    def key(self) -> bool:
+        return self.reason is None
+
+    @classmethod
+    def no_key(cls, reason: NoKeyReason, detail: str = "") -> "Status":
+        if not isinstance(reason, NoKeyReason):
+            raise TypeError(f"a no-key status needs a NoKeyReason, got {reason!r}")
+        return cls(reason, detail)
+
+    def text(self) -> str:
+        """``"key"``, or ``"no key: <reason>"`` with the detail after a semicolon."""
+        if self.key:
+            return "key" + (f" ({self.detail})" if self.detail else "")
+        return f"no key: {self.reason.text}" + (f"; {self.detail}" if self.detail else "")
+
+    def to_dict(self) -> dict:
+        return {"key": self.key, "reason": None if self.reason is None else self.reason.value,
+                "reason_text": None if self.reason is None else self.reason.text, "detail": self.detail}
+
+
+#: The status of a result with a key.
+KEY = Status()
+
+
+def _check_status(status: Status, has_key: bool, what: str) -> None:
+    if not isinstance(status, Status):
+        raise TypeError(f"{what}: status must be a Status, got {status!r}")
+    if status.key != has_key:
+        raise ValueError(f"{what}: status {status.text()!r} contradicts a key length that is "
+                         f"{'positive' if has_key else 'zero'}")
 
 
 @dataclass(frozen=True)
@@ -67,6 +153,9 @@ class KeyLengthResult:
         LaTeX of the key-length formula.
     references : tuple of str
         Published sources of the analysis.
+    status : Status
+        Key, or no key with the reason the analysis found.  When not given: key for a positive length,
+        else :attr:`NoKeyReason.BELOW_ONE_BIT`.  A status that contradicts the length is refused.
     """
 
     protocol: str
@@ -78,6 +167,13 @@ class KeyLengthResult:
     estimates: dict = field(default_factory=dict)
     formula: str = ""
     references: tuple = ()
+    status: Status | None = None
+
+    def __post_init__(self):
+        has_key = self.secret_key_length > 0
+        if self.status is None:
+            object.__setattr__(self, "status", KEY if has_key else Status.no_key(NoKeyReason.BELOW_ONE_BIT))
+        _check_status(self.status, has_key, "KeyLengthResult")
 
     @property
     def eps_total(self) -> float:
@@ -106,6 +202,7 @@ class KeyLengthResult:
             "estimates": _finite(self.estimates),
             "formula": self.formula,
             "references": list(self.references),
+            "status": self.status.to_dict(),
         }
 
 
@@ -117,11 +214,14 @@ class DesignResult:
     ----------
     protocol : str
     parameters : dict
-        The chosen free parameters (JSON-ready), e.g. basis bias, test fraction, epsilon split.
+        The free parameters (JSON-ready), e.g. basis bias, test fraction, epsilon split: chosen when there is
+        a key; with no key they are only the last point tried (``to_dict`` gives them as
+        ``parameters_tried`` and ``parameters`` as null).
     expected : KeyLengthResult
         Key length at the expected counts.
-    secret_key_rate_per_signal : float
-        Secret bits per signal (pulse) sent.
+    secret_key_rate_per_signal : float or None
+        Secret bits per signal (pulse) sent; None when the number of signals is not known (a detection
+        budget without a detection probability).
     secret_key_rate_bps : float or None
         Secret bits per second, when the scenario gives a signal rate.
     expected_counts : dict
@@ -133,12 +233,15 @@ class DesignResult:
     diagnostics : dict
         Optimiser facts that are not free parameters (e.g. the float objective it maximised), for
         checking the optimiser; never used for a key length.
+    status : Status
+        Key, or no key with the reason.  When not given: key if ``expected`` has one, else
+        :attr:`NoKeyReason.NO_POSITIVE_DESIGN` with the expected result's reason as detail.
     """
 
     protocol: str
     parameters: dict
     expected: KeyLengthResult
-    secret_key_rate_per_signal: float
+    secret_key_rate_per_signal: float | None
     secret_key_rate_bps: float | None = None
     expected_counts: dict = field(default_factory=dict)
     block_fill_time_s: float | None = None
@@ -146,14 +249,23 @@ class DesignResult:
     secret_key_rate_per_detection: float | None = None
     asymptotic_rate_per_detection: float | None = None
     diagnostics: dict = field(default_factory=dict)
+    status: Status | None = None
+
+    def __post_init__(self):
+        has_key = self.expected.secret_key_length > 0
+        if self.status is None:
+            object.__setattr__(self, "status", KEY if has_key else design_no_key(self.expected.status))
+        _check_status(self.status, has_key, "DesignResult")
 
     def to_dict(self) -> dict:
-        return {
+        rate = None if self.secret_key_rate_per_signal is None else float(self.secret_key_rate_per_signal)
+        out = {
             "protocol": self.protocol,
-            "parameters": dict(self.parameters),
+            "status": self.status.to_dict(),
+            "parameters": dict(self.parameters) if self.status.key else None,
             "secret_key_length": int(self.expected.secret_key_length),
-            "secret_key_rate_per_signal": float(self.secret_key_rate_per_signal),
-            "secret_key_rate_per_pulse": float(self.secret_key_rate_per_signal),
+            "secret_key_rate_per_signal": rate,
+            "secret_key_rate_per_pulse": rate,
             "secret_key_rate_bps": None if self.secret_key_rate_bps is None else float(self.secret_key_rate_bps),
             "expected_counts": _finite(self.expected_counts),
             "block_fill_time_s": None if self.block_fill_time_s is None else float(self.block_fill_time_s),
@@ -165,6 +277,14 @@ class DesignResult:
             "expected": self.expected.to_dict(),
             "diagnostics": _finite(self.diagnostics),
         }
+        if not self.status.key:
+            out["parameters_tried"] = dict(self.parameters)
+        return out
+
+
+def design_no_key(expected_status: Status, reason: NoKeyReason = NoKeyReason.NO_POSITIVE_DESIGN) -> Status:
+    """No-key status of a design whose best point tried has ``expected_status``."""
+    return Status.no_key(reason, "at the best point tried: " + expected_status.text().removeprefix("no key: "))
 
 
 class BlockTargetKind(enum.Enum):
@@ -247,6 +367,8 @@ class BlockSizeResult:
         The design at that size.
     resolution : int
         The search stops when the bracket is this narrow: ``size - resolution`` was not shown to fail.
+    status : Status
+        The design's status (a block-size search that finds no size raises instead).
     """
 
     target: BlockTarget
@@ -254,7 +376,65 @@ class BlockSizeResult:
     size_kind: str
     design: DesignResult
     resolution: int = 1
+    status: Status | None = None
+
+    def __post_init__(self):
+        if self.status is None:
+            object.__setattr__(self, "status", self.design.status)
+        _check_status(self.status, self.design.expected.secret_key_length > 0, "BlockSizeResult")
 
     def to_dict(self) -> dict:
         return {"target": self.target.to_dict(), "size": int(self.size), "size_kind": self.size_kind,
-                "resolution": int(self.resolution), "design": self.design.to_dict()}
+                "resolution": int(self.resolution), "status": self.status.to_dict(),
+                "design": self.design.to_dict()}
+
+
+@dataclass(frozen=True)
+class ReachResult:
+    """The largest distance with a positive certified key, found by a search in distance.
+
+    Attributes
+    ----------
+    reach_km : float or None
+        Largest distance shown to give a key, to within ``tolerance_km``; None when the search found a key
+        at every distance up to its limit (the reach lies beyond ``search_limit_km`` and is not known)
+        or no key even at 0 km.
+    statistics : str
+    tolerance_km : float
+    search_limit_km : float
+        Largest distance the search tries.
+    limit_reached : bool
+        True when a key exists at ``search_limit_km`` itself.
+    status : Status
+        Key (at the distance reported, or at the search limit) or no key at 0 km, with the reason.
+    at_reach : DesignResult or None
+        The design at ``reach_km`` (or at the search limit when ``limit_reached``).
+    """
+
+    reach_km: float | None
+    statistics: str
+    tolerance_km: float
+    search_limit_km: float
+    status: Status
+    limit_reached: bool = False
+    at_reach: DesignResult | None = None
+
+    def __post_init__(self):
+        if self.limit_reached and self.reach_km is not None:
+            raise ValueError("ReachResult: a search that reached its limit has no reach distance")
+        if self.status.key != (self.at_reach is not None):
+            raise ValueError("ReachResult: the status must match whether a design with a key is attached")
+
+    def to_dict(self) -> dict:
+        out = {"reach_km": None if self.reach_km is None else float(self.reach_km), "status": self.status.to_dict(),
+               "statistics": self.statistics, "tolerance_km": float(self.tolerance_km),
+               "search_limit_km": float(self.search_limit_km), "limit_reached": bool(self.limit_reached)}
+        if self.at_reach is not None:
+            best = self.at_reach
+            p = best.parameters
+            out.update({"secret_key_length_at_reach": int(best.expected.secret_key_length),
+                        "secret_key_rate_per_pulse_at_reach": float(best.secret_key_rate_per_signal),
+                        "intensities_at_reach": list(p["intensities"]),
+                        "intensity_probabilities_at_reach": list(p["intensity_probabilities"]),
+                        "key_basis_probability_at_reach": float(p["key_basis_probability"])})
+        return out

@@ -69,7 +69,8 @@ from ..searching import golden_max, maximize_box, smallest_passing
 from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, FixedEfficiency, LeakageModel,
                               SecondOrderLeakage)
 from ._registry import register
-from ._result import BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult
+from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult, NoKeyReason,
+                      Status, design_no_key)
 
 __all__ = ["Statistics", "BB84Block", "BB84", "BB84_PROTOCOL", "TERM_SPECS", "key_length_expr",
            "verification_tag_bits", "sifting_fraction", "OVERLAP_DOMAIN_BB84", "PROTOCOL_NAME"]
@@ -475,7 +476,23 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
     if not usable:
         estimates["note_phase_error_at_least_half"] = 1.0
     return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, _assumptions(block.leakage), terms,
-                           estimates, FORMULA_LATEX, REFERENCES)
+                           estimates, FORMULA_LATEX, REFERENCES,
+                           status=_key_status(length, usable, phi_up, e / k, terms))
+
+
+def _key_status(length: int, usable: bool, phi_up: float, test_qber: float, terms: dict) -> Status:
+    """Key, or which part of the formula left none: the phase-error bound, or leakage and penalties."""
+    if length > 0:
+        return KEY
+    if not usable:
+        return Status.no_key(NoKeyReason.PHASE_ERROR_BOUND, f"phase-error upper bound {phi_up:.4g} >= 1/2 "
+                                                            f"(test QBER {test_qber:.4g})")
+    cost = terms["ec_leakage"] + terms["verification_tag"] + terms["hash_penalty"]
+    detail = (f"min-entropy {terms['min_entropy']:.6g} bits against leakage {terms['ec_leakage']:.6g} + "
+              f"verification tag {terms['verification_tag']:.6g} + hash penalty {terms['hash_penalty']:.4g} bits")
+    reason = (NoKeyReason.PENALTIES_EXCEED_ENTROPY if terms["min_entropy"] - cost < 1
+              else NoKeyReason.BELOW_ONE_BIT)
+    return Status.no_key(reason, detail)
 
 
 def key_length_batch(blocks, statistics=None, *, prec: int = 128, jobs: int = 1) -> list:
@@ -633,6 +650,11 @@ def parse_scenario(data) -> BB84Scenario:
     if "signals" in b and "detection_probability" not in b:
         raise InputError("budget.detection_probability", None, f"{PROBABILITY.describe()} (required with "
                                                                "budget.signals)")
+    if "detections" in b and "signal_rate_hz" in b and "detection_probability" not in b:
+        raise InputError("budget.signal_rate_hz", b["signal_rate_hz"],
+                         "absent with budget.detections unless budget.detection_probability is also given "
+                         "(signals per block = detections / detection_probability; without it there is no "
+                         "rate per second, fill time or rate per signal)")
     s = norm["security"]
     if "eps_total" in s:
         for other in ("eps_sec", "eps_cor"):
@@ -843,12 +865,15 @@ def _design_at(sc: BB84Scenario, N: float, stats: Statistics, p_x: float, share:
     else:
         led = block_ledger(sc.eps_sec, sc.eps_cor, split)
         res = KeyLengthResult(PROTOCOL_NAME, 0, led, stats.value, ASSUMPTIONS, {}, {"note_block_too_small": 1.0},
-                              FORMULA_LATEX, REFERENCES)
+                              FORMULA_LATEX, REFERENCES,
+                              status=Status.no_key(NoKeyReason.BLOCK_TOO_SMALL,
+                                                   f"{N:.6g} detections give {n} key bits and {k} test bits"))
     ell = res.secret_key_length
     p_det = sc.detection_probability
     signals = N / p_det if p_det else None
     per_det = ell / N if N > 0 else 0.0
-    per_signal = ell / signals if signals else per_det
+    # per signal, per second and the fill time need the number of signals (a detection budget alone has none)
+    per_signal = ell / signals if signals else None
     bps = per_signal * sc.signal_rate_hz if (sc.signal_rate_hz and signals) else None
     fill = signals / sc.signal_rate_hz if (sc.signal_rate_hz and signals) else None
     params = {"p_x": p_x, "p_z": 1.0 - p_x, "sifting_fraction": sifting_fraction(p_x),
@@ -857,9 +882,28 @@ def _design_at(sc: BB84Scenario, N: float, stats: Statistics, p_x: float, share:
     counts = {"detections": N, "key_bits": n, "test_bits": k, "test_errors": e, "key_qber": sc.qber}
     if signals:
         counts["signals"] = signals
-    return DesignResult(PROTOCOL_NAME, params, res, per_signal, bps, counts, fill, sc.data,
-                        secret_key_rate_per_detection=per_det,
-                        asymptotic_rate_per_detection=asymptotic_rate(sc))
+    r_inf = asymptotic_rate(sc)
+    status = KEY if ell > 0 else design_no_key(
+        res.status, NoKeyReason.THRESHOLD_EXCEEDED if r_inf <= 0 else
+        (NoKeyReason.BLOCK_TOO_SMALL if res.status.reason is NoKeyReason.BLOCK_TOO_SMALL
+         else NoKeyReason.NO_POSITIVE_DESIGN))
+    return DesignResult(PROTOCOL_NAME, params, res, per_signal, bps, counts, fill, _echo(sc, N),
+                        secret_key_rate_per_detection=per_det, asymptotic_rate_per_detection=r_inf, status=status)
+
+
+def _echo(sc: BB84Scenario, N: float) -> dict:
+    """The scenario as validated, with the block size the design was made for (a block-size search designs at
+    sizes other than the scenario's own budget)."""
+    data = {s_: dict(v) if isinstance(v, dict) else v for s_, v in sc.data.items()}
+    if sc.detections is not None:
+        size = N
+    else:
+        size = N / float(sc.detection_probability)
+        size = round(size) if abs(size - round(size)) <= 1e-6 * max(1.0, size) else size
+    key = "detections" if sc.detections is not None else "signals"
+    if float(size) != float(data["budget"][key]):
+        data["budget"][key] = int(size) if float(size).is_integer() else size
+    return data
 
 
 def _meets(target: BlockTarget, ell: float, N: float, r_inf: float) -> bool:

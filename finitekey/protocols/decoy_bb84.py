@@ -65,7 +65,7 @@ from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
 from ._registry import register
-from ._result import BlockTarget, DesignResult, KeyLengthResult
+from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
 __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS",
            "term_specs", "gllp_rate", "optimal_gllp_rate", "three_intensity_condition"]
@@ -654,7 +654,29 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
         assumptions=ASSUMPTIONS + (f"analysis: {analysis}",) + _kato_extra(method, KATO_ASSUMPTION), terms=terms,
-        estimates=estimates, formula=FORMULA, references=REFERENCES + _kato_extra(method, KATO_REFERENCE))
+        estimates=estimates, formula=FORMULA, references=REFERENCES + _kato_extra(method, KATO_REFERENCE),
+        status=_key_status(length, terms, estimates))
+
+
+def _key_status(length: int, terms: dict, estimates: dict) -> Status:
+    """Key, or which part of the formula left none: no single photons, the phase-error bound at 1/2, or the
+    leakage and penalties exceeding the vacuum and single-photon bits."""
+    if length > 0:
+        return KEY
+    s1, s1z = estimates["s1_lower"], estimates["s1_test_lower"]
+    if not (s1 >= 1 and s1z >= 1):
+        return Status.no_key(NoKeyReason.NO_SINGLE_PHOTON_BOUND, f"single-photon lower bounds: key basis "
+                                                                 f"{s1:.6g}, test basis {s1z:.6g}")
+    if estimates["phase_error_upper"] >= 0.5:
+        return Status.no_key(NoKeyReason.PHASE_ERROR_BOUND, f"single-photon phase-error upper bound "
+                                                            f"{estimates['phase_error_upper']:.4g} >= 1/2")
+    gain = terms["vacuum_bits"] + terms["single_photon_bits"]
+    cost = terms["ec_leakage"] + terms["chain_rule_penalty"] + terms["hash_penalty"] + terms["verification_tag"]
+    detail = (f"vacuum {terms['vacuum_bits']:.6g} + single-photon {terms['single_photon_bits']:.6g} bits "
+              f"against leakage {terms['ec_leakage']:.6g} + chain rule {terms['chain_rule_penalty']:.4g} + hash "
+              f"{terms['hash_penalty']:.4g} + verification {terms['verification_tag']:.4g} bits")
+    reason = NoKeyReason.PENALTIES_EXCEED_ENTROPY if gain - cost < 1 else NoKeyReason.BELOW_ONE_BIT
+    return Status.no_key(reason, detail)
 
 
 def _kato_extra(method: str, text: str) -> tuple:
@@ -672,7 +694,8 @@ def _inconsistent_result(block, method, analysis, ledger, est, violations) -> Ke
                                    "block rejected, inconsistent with the decoy model: " + "; ".join(violations))
         + _kato_extra(method, KATO_ASSUMPTION),
         terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA,
-        references=REFERENCES + _kato_extra(method, KATO_REFERENCE))
+        references=REFERENCES + _kato_extra(method, KATO_REFERENCE),
+        status=Status.no_key(NoKeyReason.INCONSISTENT_BLOCK, "; ".join(violations)))
 
 
 #: The exact binomial tails accept at most this many trials (finitekey.bounds.binomial_exact).
@@ -948,7 +971,7 @@ class DecoyBB84:
         from ..optimize import decoy_design
         return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics))
 
-    def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> dict:
+    def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> ReachResult:
         from ..optimize import decoy_design
         return decoy_design.reach(scenario, _check_design_statistics(statistics))
 
