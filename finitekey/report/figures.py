@@ -15,7 +15,7 @@ References
 from __future__ import annotations
 
 from ..errors import FiniteKeyError, InputError
-from .formats import short_number
+from .formats import short_number, status_text
 from .plots import Curve, axis_label, blocksize_figure, ledger_figure, rate_figure, repeaterless_bound, use_log
 from .sweep import SweepTable, _scenario_at
 
@@ -27,7 +27,9 @@ KINDS = ("rate", "blocksize", "ledger")
 def series(table: SweepTable, value_key: str) -> list:
     """Rows grouped into curves: x = first varied field, one curve per value of the second field.
 
-    Rows with an error contribute no point.  A third or later varied field is
+    Rows with an error contribute no point.  Rows whose status is no key contribute no point either; their
+    x values and reasons go to the curve's ``meta["no_key_x"]`` / ``meta["no_key_reasons"]``, which the
+    figure marks on the horizontal axis.  A third or later varied field is
     not plotted: it must take a single value (otherwise the curves would mix).
 
     Raises
@@ -44,10 +46,19 @@ def series(table: SweepTable, value_key: str) -> list:
     xf = table.axes[0].field
     family = table.axes[1] if len(table.axes) > 1 else None
     groups: dict = {}
+    no_key: dict = {}
     for r in table.rows:
         key = r["point"].get(family.field) if family is not None else None
         groups.setdefault(key, ([], []))
         if r.get("error"):
+            continue
+        status = r.get("status") or {}
+        if status and not status.get("key"):
+            xs_, reasons = no_key.setdefault(key, ([], []))
+            xs_.append(r["point"][xf])
+            reason = status_text(status)
+            if reason not in reasons:
+                reasons.append(reason)
             continue
         groups[key][0].append(r["point"][xf])
         value = (r.get("design") or {}).get("secret_key_rate_per_detection") if value_key == "_per_detection" \
@@ -57,7 +68,9 @@ def series(table: SweepTable, value_key: str) -> list:
     for key in (family.values if family is not None else [None]):
         xs, ys = groups.get(key, ([], []))
         label = "finite key" if family is None else f"{axis_label(family.field).split(' (')[0]} = {_compact(key)}"
-        curves.append(Curve(label=label, x=tuple(xs), y=tuple(ys), kind="finite", meta={"family": key}))
+        nk_x, nk_reasons = no_key.get(key, ([], []))
+        curves.append(Curve(label=label, x=tuple(xs), y=tuple(ys), kind="finite",
+                            meta={"family": key, "no_key_x": tuple(nk_x), "no_key_reasons": tuple(nk_reasons)}))
     return curves
 
 

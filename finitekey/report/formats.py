@@ -36,6 +36,7 @@ __all__ = [
     "latex_number",
     "render_table",
     "short_number",
+    "status_text",
     "to_csv",
     "to_json",
     "to_latex",
@@ -64,6 +65,13 @@ def short_number(x, digits: int = 4) -> str:
     if isinstance(x, list):
         return ", ".join(short_number(v, digits) for v in x)
     return str(x)
+
+
+def status_text(status: dict | None) -> str | None:
+    """Table cell of a row's status (``Status.to_dict()``): ``"key"`` or ``"no key: <reason>"``; None for none."""
+    if not status:
+        return None
+    return "key" if status.get("key") else f"no key: {status.get('reason_text') or status.get('reason')}"
 
 
 def _csv_cell(x) -> str:

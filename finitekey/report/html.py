@@ -22,7 +22,7 @@ import html
 import json
 import re
 
-from .formats import short_number
+from .formats import short_number, status_text
 
 __all__ = ["CSS", "to_html"]
 
@@ -137,7 +137,9 @@ def to_html(report) -> str:
              f'<p class="caution" id="caution-top">{_e(r.caution)}</p>']
 
     # summary
-    cards = [("secret key length", f"{int(row['secret_key_length']):,} bit".replace(",", " ")),
+    status = row.get("status") or {"key": True}
+    cards = [("status", "key" if status.get("key") else "no key"),
+             ("secret key length", f"{int(row['secret_key_length']):,} bit".replace(",", " ")),
              ("key rate per pulse", short_number(row["secret_key_rate_per_pulse"])),
              ("key rate per second", short_number(row["secret_key_rate_bps"])
               + (" bit/s" if row["secret_key_rate_bps"] is not None else "")),
@@ -146,7 +148,11 @@ def to_html(report) -> str:
              ("statistics", exp.get("statistics", ""))]
     parts.append("<section>" + h2("Result at the scenario") + '<div class="cards" id="summary">'
                  + "".join(f'<div class="card"><div class="label">{_e(k)}</div><div class="value">{_e(v)}</div></div>'
-                           for k, v in cards) + "</div></section>")
+                           for k, v in cards) + "</div>"
+                 + (f'<p class="caution" id="status">{_e(status_text(status))}'
+                    + (f"; {_e(status.get('detail'))}" if status.get("detail") else "") + "</p>"
+                    if not status.get("key") else "")
+                 + "</section>")
 
     # scenario and device model
     sec = ["<section>", h2("Scenario and device model"),
@@ -167,15 +173,20 @@ def to_html(report) -> str:
     sec.append("</section>")
     parts += sec
 
-    # chosen parameters
-    parts.append("<section>" + h2("Chosen parameters")
-                 + "<p>Free parameters selected by the design optimiser for this scenario, and the expected counts "
-                   "the key length is computed from.</p>"
-                 + _table("parameters-table", ["parameter", "value"], _kv_rows(row.get("parameters") or {}))
-                 + ("<h3>expected counts</h3>" + _table("counts-table", ["quantity", "value"],
-                                                        _kv_rows(d.get("expected_counts") or {}))
-                    if d.get("expected_counts") else "")
-                 + "</section>")
+    # chosen parameters (none when there is no key)
+    if status.get("key"):
+        parts.append("<section>" + h2("Chosen parameters")
+                     + "<p>Free parameters selected by the design optimiser for this scenario, and the expected "
+                       "counts the key length is computed from.</p>"
+                     + _table("parameters-table", ["parameter", "value"], _kv_rows(row.get("parameters") or {}))
+                     + ("<h3>expected counts</h3>" + _table("counts-table", ["quantity", "value"],
+                                                            _kv_rows(d.get("expected_counts") or {}))
+                        if d.get("expected_counts") else "")
+                     + "</section>")
+    else:
+        parts.append("<section>" + h2("Chosen parameters")
+                     + f'<p id="parameters-table">No parameters are chosen: {_e(status_text(status))}.</p>'
+                     + "</section>")
 
     # formula
     f = r.formula

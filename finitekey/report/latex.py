@@ -12,6 +12,7 @@ References
 from __future__ import annotations
 
 from .formats import latex_escape, latex_number
+from .formats import status_text
 from .formats import to_latex as table_latex
 
 __all__ = ["report_latex", "wrap_document"]
@@ -41,7 +42,8 @@ def report_latex(report) -> str:
            r"\subsection*{" + latex_escape(r.title) + "}",
            r"\paragraph{Key-length formula.}",
            r"\begin{equation*}", exp.get("formula", "") or r"\text{(no formula)}", r"\end{equation*}"]
-    summary = [("secret key length (bit)", int(row["secret_key_length"])),
+    summary = [("status", status_text(row.get("status")) or "key"),
+               ("secret key length (bit)", int(row["secret_key_length"])),
                ("key rate per pulse", row["secret_key_rate_per_pulse"]),
                ("key rate per second (bit/s)", row["secret_key_rate_bps"]),
                ("total epsilon", row["eps_total"]),

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import io
 import math
+import textwrap
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -164,16 +165,33 @@ def _points(c: Curve, logy: bool, logx: bool):
     return xs, ys
 
 
+def _no_key_x(c: Curve, logx: bool) -> list:
+    out = []
+    for x in c.meta.get("no_key_x", ()) if c.kind == "finite" else ():
+        if x is not None and math.isfinite(float(x)) and not (logx and float(x) <= 0):
+            out.append(float(x))
+    return out
+
+
 def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
+    """Draw the curves; points of a finite curve with no key are marked x on the horizontal axis."""
     finite = 0
+    reasons: list = []
     for c in curves:
         xs, ys = _points(c, logy, logx)
-        if not xs:
+        nk = _no_key_x(c, logx)
+        if not xs and not nk:
             continue
         if c.kind == "finite":
             col = PALETTE[finite % len(PALETTE)]
-            ax.plot(xs, ys, color=col, marker=MARKERS[finite % len(MARKERS)], markersize=4.0,
-                    markerfacecolor="white", markeredgewidth=1.2, label=c.label, zorder=3)
+            if xs:
+                ax.plot(xs, ys, color=col, marker=MARKERS[finite % len(MARKERS)], markersize=4.0,
+                        markerfacecolor="white", markeredgewidth=1.2, label=c.label, zorder=3)
+            if nk:
+                ax.plot(nk, [0.0] * len(nk), transform=ax.get_xaxis_transform(), linestyle="none", marker="x",
+                        markersize=7.0, markeredgewidth=1.6, color=col, clip_on=False, zorder=4, gid="no-key",
+                        label="_nolegend_")
+                reasons += [r for r in c.meta.get("no_key_reasons", ()) if r not in reasons]
             finite += 1
         elif c.kind == "asymptotic":
             ax.plot(xs, ys, color="#2b3a55", linestyle=(0, (6, 3)), linewidth=1.5, label=c.label, zorder=2)
@@ -183,6 +201,10 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
             ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.08, linewidth=0, zorder=0)
         else:
             raise InputError("curve.kind", c.kind, "one of: finite, asymptotic, bound")
+    if reasons:
+        text = "no key at the points marked x: " + "; ".join(r.removeprefix("no key: ") for r in reasons)
+        ax.plot([], [], linestyle="none", marker="x", color="#2b3a55", markeredgewidth=1.6,
+                label=textwrap.fill(text, 70))
     if logx:
         ax.set_xscale("log")
     if logy:
@@ -217,7 +239,7 @@ def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key 
                              "a sweep with at least one positive key rate (try a shorter distance or a larger block)")
         if ylabel.endswith("(bit/pulse)") and any(c.kind == "bound" for c in drawable):
             ylabel = ylabel.replace("(bit/pulse)", "(bit per pulse / channel use)")
-        _draw_curves(ax, drawable, logx, logy)
+        _draw_curves(ax, [c for c in curves if c in drawable or _no_key_x(c, logx)], logx, logy)
         ax.set_xlabel(xlabel)
         ax.set_ylabel(ylabel)
         _finish(ax, fig, title, note)

@@ -33,6 +33,7 @@ from .. import __version__, protocols
 from ..errors import FiniteKeyError, InputError
 from ..files import read_toml
 from ..optimize.dispatch import scenario_from_dict
+from .formats import status_text
 from .grid import Axis, GridPoint, expand_grid, parse_vary
 from .runner import run_map
 
@@ -195,11 +196,13 @@ def _number(x):
 def _design_row(design) -> dict:
     d = design.to_dict()
     return {
+        "status": d["status"],
         "secret_key_length": int(d["secret_key_length"]),
         "secret_key_rate_per_pulse": _number(d["secret_key_rate_per_signal"]),
         "secret_key_rate_per_detection": _number(d.get("secret_key_rate_per_detection")),
         "secret_key_rate_bps": _number(d.get("secret_key_rate_bps")),
-        "parameters": flatten(d.get("parameters", {})),
+        # no parameters are chosen when there is no key: those cells stay blank, the status says why
+        "parameters": flatten(d.get("parameters") or {}),
         "eps_total": _number(d["expected"]["eps_total"]),
         "eps_sec": _number(d["expected"]["eps_sec"]),
         "eps_cor": _number(d["expected"]["eps_cor"]),
@@ -287,6 +290,7 @@ class SweepTable:
         cols = [(f, f, "") for f in self.fields]
         if self.mode == "blocksize":
             cols += [("block_size", "block size", ""), ("block_size_kind", "block size unit", "")]
+        cols.append(("status", "status", ""))
         cols += [("secret_key_length", "secret key length", "bit"),
                  ("secret_key_rate_per_pulse", "key rate per pulse", "bit/pulse")]
         if any(r.get("secret_key_rate_per_detection") is not None for r in self.rows):
@@ -308,6 +312,8 @@ class SweepTable:
                     cells.append(r["point"][key])
                 elif key.startswith("parameters."):
                     cells.append((r.get("parameters") or {}).get(key[len("parameters."):]))
+                elif key == "status":
+                    cells.append(status_text(r.get("status")))
                 else:
                     cells.append(r.get(key))
             out.append(cells)
