@@ -8,7 +8,7 @@ a user error.
 
 from __future__ import annotations
 
-__all__ = ["FiniteKeyError", "InputError", "ComputationError"]
+__all__ = ["FiniteKeyError", "InputError", "PathError", "ComputationError"]
 
 
 class FiniteKeyError(Exception):
@@ -37,6 +37,29 @@ class InputError(FiniteKeyError, ValueError):
     def __reduce__(self):
         # Rebuild from the three fields, so the error survives pickling (worker processes, Dask).
         return (type(self), (self.field, self.value, self.allowed))
+
+
+class PathError(InputError):
+    """The operating system refused to read or write a file or stream the user named.
+
+    One line naming the option, the path and the reason, e.g.
+    ``--output 'out/t.md': cannot write: No space left on device``.
+
+    Parameters
+    ----------
+    field : str
+        The option or field that named the path, e.g. ``"--output"``.
+    path : str
+        The path as given (or ``"<standard output>"``).
+    reason : str
+        What failed and why.
+    """
+
+    def __init__(self, field: str, path: str, reason: str):
+        self.field = field
+        self.value = path
+        self.allowed = reason
+        Exception.__init__(self, f"{field} {path!r}: {reason}")
 
 
 class ComputationError(FiniteKeyError, ArithmeticError):

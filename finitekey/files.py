@@ -1,9 +1,8 @@
 """Reading input files and writing output files safely.
 
 Inputs: JSON, JSON Lines, CSV and TOML, with errors that name the file, the
-field and the problem.  Outputs: written to a temporary file in the target
-directory and renamed into place, so an interruption never leaves a
-half-written file.
+field and the problem.  Outputs: :func:`atomic_write` is the one-file shortcut
+of :mod:`finitekey.outputs` (checked path, temporary file renamed into place).
 """
 
 from __future__ import annotations
@@ -11,9 +10,7 @@ from __future__ import annotations
 import csv
 import io
 import json
-import os
 import sys
-import tempfile
 from pathlib import Path
 
 if sys.version_info >= (3, 11):
@@ -22,34 +19,24 @@ else:  # pragma: no cover
     import tomli as tomllib
 
 from .errors import InputError
+from .outputs import plan_outputs, write_outputs
 
 __all__ = ["atomic_write", "read_json", "read_toml", "read_records"]
 
 
-def atomic_write(path, data) -> None:
-    """Write ``data`` (str or bytes) to ``path`` atomically (temp file + rename)."""
-    path = Path(path)
-    directory = path.parent if str(path.parent) else Path(".")
-    if not directory.is_dir():
-        raise InputError("output", str(path), "a file in an existing directory")
-    mode = "wb" if isinstance(data, (bytes, bytearray)) else "w"
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=directory)
-    try:
-        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        # mkstemp creates the file private (0600); give it the permissions a plain open() would.
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+def atomic_write(path, data, option: str = "output") -> None:
+    """Write ``data`` (str or bytes) to ``path`` atomically, after the checks of :mod:`finitekey.outputs`.
+
+    A shortcut for one file: :func:`finitekey.outputs.plan_outputs` then
+    :func:`finitekey.outputs.write_outputs`.
+
+    Raises
+    ------
+    InputError
+        When ``path`` may not be written (see :func:`finitekey.outputs.plan_outputs`) or the write fails.
+    """
+    (target,) = plan_outputs([(option, str(path), None)])
+    write_outputs([(target, data)])
 
 
 def _read_text(path) -> str:

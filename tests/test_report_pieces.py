@@ -203,7 +203,7 @@ def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
     def boom(fd):
         raise KeyboardInterrupt("simulated interruption after the data was written")
 
-    monkeypatch.setattr("finitekey.files.os.fsync", boom)
+    monkeypatch.setattr("finitekey.outputs.os.fsync", boom)
     with pytest.raises(KeyboardInterrupt):
         atomic_write(target, formats.to_csv(_table()))
     assert target.read_text() == "old complete content\n"  # old file intact

@@ -292,7 +292,7 @@ def test_interrupted_table_write_leaves_no_file(bb84_file, tmp_path, monkeypatch
     def interrupted(fd):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("finitekey.files.os.fsync", interrupted)
+    monkeypatch.setattr("finitekey.outputs.os.fsync", interrupted)
     dest = tmp_path / "out" / "t.csv"
     dest.parent.mkdir()
     assert main(["table", str(bb84_file), "--vary", "channel.qber=0.02", "--jobs", "1", "-o", str(dest)]) == 130

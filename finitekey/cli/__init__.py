@@ -6,8 +6,9 @@ Each sub-command lives in its own module of this package as an object with
 module of the sub-command being run is imported (``finitekey --help`` imports
 none of them), so that start-up does not pay for sympy, scipy.optimize or
 matplotlib unless the sub-command uses them.  User errors
-(:class:`~finitekey.errors.InputError`) print one line to stderr and exit
-with status 2, never a traceback.
+(:class:`~finitekey.errors.InputError`, including operating-system errors on
+files and on standard output) print one line to stderr and exit with status
+2, never a traceback.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ from typing import NamedTuple
 
 from .. import __version__
 from ..errors import ComputationError, InputError
+from ..outputs import guarded_stdout, os_reason
 
 
 class SubCommand(NamedTuple):
@@ -123,7 +125,8 @@ def main(argv=None) -> int:
         parser.print_help()
         return 0
     try:
-        return int(args._run(args) or 0)
+        with guarded_stdout():  # output errors (disk full) become one line; flushed here, not at exit
+            return int(args._run(args) or 0)
     except InputError as exc:
         print(f"finitekey {args.command}: error: {exc}", file=sys.stderr)
         return 2
@@ -135,6 +138,10 @@ def main(argv=None) -> int:
 
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
+    except OSError as exc:  # any other operating-system error on a file: one line, no traceback
+        where = f"{exc.filename!r}: " if getattr(exc, "filename", None) else ""
+        print(f"finitekey {args.command}: error: {where}{os_reason(exc)}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print("finitekey: interrupted", file=sys.stderr)
         return 130

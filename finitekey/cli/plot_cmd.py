@@ -6,10 +6,11 @@ import argparse
 from types import SimpleNamespace
 
 from ..errors import InputError
+from ..outputs import output_format, plan_outputs, write_outputs
 from ..report.figures import KINDS, blocksize_plot, ledger_plot, rate_plot
 from ..report.plots import PLOT_FORMATS, figure_bytes
 from ..report.sweep import _design_row, load_scenario, provenance, run_sweep
-from .table_cmd import add_sweep_arguments, command_line, write_output
+from .table_cmd import add_sweep_arguments, command_line
 
 
 def _args(p: argparse.ArgumentParser) -> None:
@@ -20,19 +21,17 @@ def _args(p: argparse.ArgumentParser) -> None:
                         "against the first varied field; ledger: epsilon ledger of the design at the scenario")
     p.add_argument("--target", default="positive",
                    help="block-size target for --kind blocksize: 'positive', 'bits=N' or 'fraction=F'")
-    p.add_argument("-o", "--output", required=True, help="output image: .png, .svg or .pdf (written atomically)")
+    p.add_argument("-o", "--output", required=True,
+                   help="output image: .png, .svg or .pdf (checked before the sweep starts, written atomically)")
 
 
-def _format(path: str) -> str:
-    low = path.lower()
-    for f in PLOT_FORMATS:
-        if low.endswith("." + f):
-            return f
-    raise InputError("--output", path, "a file name ending in " + ", ".join("." + f for f in PLOT_FORMATS))
+#: File-name extensions of the image formats.
+EXTENSIONS = {f: ("." + f,) for f in PLOT_FORMATS}
 
 
 def _run(args) -> int:
-    fmt = _format(args.output)
+    fmt = output_format(args.output, "--output", EXTENSIONS, format_option=None)
+    (target,) = plan_outputs([("--output", args.output, fmt)], inputs=[args.scenario])
     loaded = load_scenario(args.scenario)
     cmd = command_line(args, "plot", [f"--kind={args.kind}", f"--output={args.output}"])
     if args.kind == "ledger":
@@ -57,7 +56,7 @@ def _run(args) -> int:
             table = run_sweep(loaded, args.vary, mode="blocksize", statistics=args.statistics, target=args.target,
                               jobs=args.jobs, cluster=args.cluster, progress=args.progress, command=cmd)
             fig = blocksize_plot(table)
-    write_output(args.output, figure_bytes(fig, fmt, provenance(loaded, cmd)))
+    write_outputs([(target, figure_bytes(fig, fmt, provenance(loaded, cmd)))])
     return 0
 
 

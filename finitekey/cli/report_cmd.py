@@ -5,12 +5,16 @@ from __future__ import annotations
 import argparse
 from types import SimpleNamespace
 
-from ..errors import InputError
+from ..outputs import output_format, plan_outputs, write_outputs
 from ..report.build import build_report
 from ..report.html import to_html
 from ..report.latex import report_latex
 from ..report.sweep import load_scenario
-from .table_cmd import add_sweep_arguments, command_line, write_output
+from .table_cmd import add_sweep_arguments, command_line
+
+#: File-name extensions of the report's two outputs.
+HTML_EXTENSIONS = {"html": (".html", ".htm")}
+LATEX_EXTENSIONS = {"tex": (".tex",)}
 
 
 def _args(p: argparse.ArgumentParser) -> None:
@@ -27,10 +31,12 @@ def _args(p: argparse.ArgumentParser) -> None:
 
 
 def _run(args) -> int:
-    if not args.output.lower().endswith((".html", ".htm")):
-        raise InputError("--output", args.output, "a file name ending in .html")
-    if args.latex is not None and not args.latex.lower().endswith(".tex"):
-        raise InputError("--latex", args.latex, "a file name ending in .tex")
+    html_fmt = output_format(args.output, "--output", HTML_EXTENSIONS, format_option=None)
+    requests = [("--output", args.output, html_fmt)]
+    if args.latex is not None:
+        requests.append(("--latex", args.latex, output_format(args.latex, "--latex", LATEX_EXTENSIONS,
+                                                              format_option=None)))
+    targets = plan_outputs(requests, inputs=[args.scenario])  # every output checked before anything runs
     loaded = load_scenario(args.scenario)
     extra = [f"--output={args.output}"] + ([f"--latex={args.latex}"] if args.latex else []) \
         + ([f"--blocksize={args.blocksize}"] if args.blocksize else []) + (["--no-sweep"] if args.no_sweep else [])
@@ -40,9 +46,7 @@ def _run(args) -> int:
                           command=command_line(args, "report", extra))
     html_text = to_html(report)
     tex = report_latex(report) if args.latex else None
-    write_output(args.output, html_text)
-    if tex is not None:
-        write_output(args.latex, tex)
+    write_outputs(list(zip(targets, [html_text, tex])))  # both files or neither
     return 0
 
 

@@ -4,11 +4,9 @@ from __future__ import annotations
 
 import argparse
 import shlex
-import sys
 from types import SimpleNamespace
 
-from ..errors import InputError
-from ..files import atomic_write
+from ..outputs import output_format, plan_outputs, write_outputs
 from ..report import formats
 from ..report.sweep import load_scenario, run_sweep
 
@@ -58,17 +56,6 @@ def command_line(args, name: str, extra=()) -> str:
     return shlex.join(words)
 
 
-def write_output(path, data) -> None:
-    """Write text/bytes atomically to ``path``, or to stdout when path is None or '-'."""
-    if path in (None, "-"):
-        if isinstance(data, bytes):
-            sys.stdout.buffer.write(data)
-        else:
-            sys.stdout.write(data)
-        return
-    atomic_write(path, data)
-
-
 def _args(p: argparse.ArgumentParser) -> None:
     add_sweep_arguments(p, vary_required=False)
     mode = p.add_mutually_exclusive_group()
@@ -78,14 +65,16 @@ def _args(p: argparse.ArgumentParser) -> None:
                       help="tabulate the smallest block per point instead: 'positive', 'bits=N' or 'fraction=F'")
     p.add_argument("--format", choices=formats.FORMATS, default=None,
                    help="csv (provenance and caution in leading '#' lines; lists as a;b;c), json (rows carry the "
-                        "full ledger), md or tex (default: from -o's extension, else md)")
-    p.add_argument("-o", "--output", default=None, help="output file (written atomically); default stdout")
+                        "full ledger), md or tex (default: from -o's extension, else md; an extension that names no "
+                        "format is refused unless --format is given)")
+    p.add_argument("-o", "--output", default=None,
+                   help="output file (checked before the sweep starts, written atomically; see 'Output files' in "
+                        "README.md); default stdout")
 
 
 def _run(args) -> int:
-    fmt = args.format or (formats.format_for_path(args.output) if args.output else "md")
-    if fmt not in formats.FORMATS:  # pragma: no cover - argparse choices
-        raise InputError("--format", fmt, "one of: " + ", ".join(formats.FORMATS))
+    fmt = output_format(args.output, "--output", formats.EXTENSIONS, explicit=args.format, default="md")
+    (target,) = plan_outputs([("--output", args.output, fmt)], inputs=[args.scenario])
     loaded = load_scenario(args.scenario)
     mode = "fixed" if args.fixed else ("blocksize" if args.blocksize else "design")
     extra = ["--fixed"] if args.fixed else ([f"--blocksize={args.blocksize}"] if args.blocksize else [])
@@ -95,7 +84,7 @@ def _run(args) -> int:
     table = run_sweep(loaded, args.vary or [], mode=mode, statistics=args.statistics, target=args.blocksize,
                       jobs=args.jobs, cluster=args.cluster, progress=args.progress,
                       command=command_line(args, "table", extra))
-    write_output(args.output, formats.render_table(table, fmt))
+    write_outputs([(target, formats.render_table(table, fmt))])
     return 0
 
 

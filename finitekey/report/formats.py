@@ -29,6 +29,7 @@ import math
 from ..cautions import CAUTION
 
 __all__ = [
+    "EXTENSIONS",
     "FORMATS",
     "format_for_path",
     "json_text",
@@ -44,6 +45,9 @@ __all__ = [
 ]
 
 FORMATS = ("csv", "json", "md", "tex")
+
+#: File-name extensions that name each table format (for -o without --format).
+EXTENSIONS = {"csv": (".csv",), "json": (".json",), "md": (".md", ".markdown"), "tex": (".tex",)}
 
 
 def short_number(x, digits: int = 4) -> str:
@@ -232,7 +236,7 @@ def render_table(table, fmt: str) -> str:
 def format_for_path(path: str, default: str = "md") -> str:
     """Guess the format from an output file's extension (``.csv``, ``.json``, ``.md``, ``.tex``)."""
     low = str(path).lower()
-    for ext, fmt in ((".csv", "csv"), (".json", "json"), (".md", "md"), (".markdown", "md"), (".tex", "tex")):
-        if low.endswith(ext):
+    for fmt, exts in EXTENSIONS.items():
+        if low.endswith(exts):
             return fmt
     return default
