@@ -23,7 +23,8 @@ class InputError(FiniteKeyError, ValueError):
     field : str
         Name of the parameter or file field, e.g. ``"eps"`` or ``"link.distance_km"``.
     value : object
-        The value received.
+        The value received; ``None`` means that no value was given (a missing field, option or a JSON
+        ``null``), and the message then says the field is missing instead of showing ``None``.
     allowed : str
         Plain-language description of what is allowed, e.g. ``"a real number in (0, 1)"``.
     """
@@ -32,7 +33,10 @@ class InputError(FiniteKeyError, ValueError):
         self.field = field
         self.value = value
         self.allowed = allowed
-        super().__init__(f"{field} = {_show(value)} is not allowed; expected {allowed}")
+        if value is None:
+            super().__init__(f"{field} is missing; expected {_strip_missing(allowed)}")
+        else:
+            super().__init__(f"{field} = {_show(value)} is not allowed; expected {allowed}")
 
     def __reduce__(self):
         # Rebuild from the three fields, so the error survives pickling (worker processes, Dask).
@@ -64,6 +68,15 @@ class PathError(InputError):
 
 class ComputationError(FiniteKeyError, ArithmeticError):
     """A numerical procedure could not produce a result it can vouch for."""
+
+
+def _strip_missing(allowed: str) -> str:
+    """Drop a trailing "(missing field)"-style note from ``allowed``: the message already says "missing"."""
+    text = str(allowed)
+    for note in (" (missing field)", " (required field)", " (required)"):
+        if text.endswith(note):
+            text = text[: -len(note)]
+    return text.replace(" (missing field; ", " (")
 
 
 def _show(value: object) -> str:

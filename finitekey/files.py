@@ -1,8 +1,12 @@
 """Reading input files and writing output files safely.
 
 Inputs: JSON, JSON Lines, CSV and TOML, with errors that name the file, the
-field and the problem.  Outputs: :func:`atomic_write` is the one-file shortcut
-of :mod:`finitekey.outputs` (checked path, temporary file renamed into place).
+field and the problem.  A UTF-8 byte-order mark at the start of a file is
+accepted (some editors write one).  A name given twice (a repeated key in a
+JSON object, a repeated CSV column) is refused rather than silently taking
+the last value; TOML refuses repeated keys itself.  Outputs: :func:`atomic_write`
+is the one-file shortcut of :mod:`finitekey.outputs` (checked path, temporary
+file renamed into place).
 """
 
 from __future__ import annotations
@@ -44,18 +48,40 @@ def _read_text(path) -> str:
     if not p.is_file():
         raise InputError("file", str(path), "a path to an existing, readable file")
     try:
-        return p.read_text(encoding="utf-8")
+        return p.read_text(encoding="utf-8-sig")  # utf-8-sig: a leading byte-order mark is dropped
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError("file", str(path), f"a readable UTF-8 text file ({exc})") from None
 
 
-def read_json(path) -> object:
-    """Parse a JSON file; syntax errors name the file, line and column."""
-    text = _read_text(path)
+class _DuplicateKey(Exception):
+    def __init__(self, key, value):
+        self.key, self.value = key, value
+
+
+def _unique_pairs(pairs):
+    """``object_pairs_hook`` for :func:`json.loads`: refuse an object that names a key twice."""
+    out = {}
+    for k, v in pairs:
+        if k in out:
+            raise _DuplicateKey(k, v)
+        out[k] = v
+    return out
+
+
+def loads_json(text: str, where: str, allowed: str = "valid JSON"):
+    """Parse JSON text; syntax errors and repeated keys raise :class:`InputError` naming ``where``."""
     try:
-        return json.loads(text)
+        return json.loads(text, object_pairs_hook=_unique_pairs)
     except json.JSONDecodeError as exc:
-        raise InputError(f"{path}: line {exc.lineno} column {exc.colno}", exc.msg, "valid JSON") from None
+        raise InputError(f"{where}: line {exc.lineno} column {exc.colno}", exc.msg, allowed) from None
+    except _DuplicateKey as exc:
+        raise InputError(f"{where}: {exc.key}", exc.value, "each field given once (this field is repeated)") \
+            from None
+
+
+def read_json(path) -> object:
+    """Parse a JSON file; syntax errors name the file, line and column; a key given twice is refused."""
+    return loads_json(_read_text(path), str(path))
 
 
 def read_toml(path) -> dict:
@@ -77,7 +103,8 @@ def read_records(path):
     batch : bool
         Whether the file holds a batch (lines, or a JSON list) rather than one block.
 
-    CSV cells that look like numbers become int or float; list-valued fields are written ``a;b;c``.
+    CSV cells that look like numbers become int or float (except the text columns label, protocol and
+    statistics); list-valued fields are written ``a;b;c``.
     Errors name the file and the line.
     """
     p = str(path)
@@ -87,23 +114,35 @@ def read_records(path):
             if not line.strip():
                 continue
             try:
-                out.append((i, json.loads(line)))
+                out.append((i, json.loads(line, object_pairs_hook=_unique_pairs)))
             except json.JSONDecodeError as exc:
                 raise InputError(f"{path}: line {i}", exc.msg, "one JSON object per line") from None
+            except _DuplicateKey as exc:
+                raise InputError(f"{path}: line {i}: {exc.key}", exc.value,
+                                 "each field given once (this field is repeated)") from None
         return out, True
     if p.endswith(".csv"):
         reader = csv.DictReader(io.StringIO(_read_text(path)))
+        header = reader.fieldnames or []
+        repeated = sorted({h for h in header if header.count(h) > 1})
+        if repeated:
+            raise InputError(f"{path}: line 1", repeated[0], "each column name once (this column is repeated)")
         out = []
         for row in reader:
             line = reader.line_num
             if None in row:
                 raise InputError(f"{path}: line {line}", row[None], "no more cells than header columns")
-            out.append((line, {k: _cell(v) for k, v in row.items() if v not in ("", None)}))
+            out.append((line, {k: (v if k in _TEXT_COLUMNS else _cell(v)) for k, v in row.items()
+                               if v not in ("", None)}))
         return out, True
     data = read_json(path)
     if isinstance(data, list):
         return [(i, d) for i, d in enumerate(data, start=1)], True
     return [(None, data)], False
+
+
+#: CSV columns kept as text even when they look like numbers (a label "0001" stays "0001").
+_TEXT_COLUMNS = ("label", "protocol", "statistics")
 
 
 def _cell(v: str):
