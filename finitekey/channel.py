@@ -66,10 +66,10 @@ class Link:
     extra_loss_db: float = 0.0
 
     def __post_init__(self):
-        object.__setattr__(self, "distance_km", _NONNEG.check("link.distance_km", self.distance_km))
+        object.__setattr__(self, "distance_km", _NONNEG.check_scalar("link.distance_km", self.distance_km))
         object.__setattr__(self, "fiber_loss_db_per_km",
-                           _NONNEG.check("link.fiber_loss_db_per_km", self.fiber_loss_db_per_km))
-        object.__setattr__(self, "extra_loss_db", _NONNEG.check("link.extra_loss_db", self.extra_loss_db))
+                           _NONNEG.check_scalar("link.fiber_loss_db_per_km", self.fiber_loss_db_per_km))
+        object.__setattr__(self, "extra_loss_db", _NONNEG.check_scalar("link.extra_loss_db", self.extra_loss_db))
 
     @property
     def loss_db(self) -> float:
@@ -102,14 +102,14 @@ class Detector:
     dead_time_s: float = 0.0
 
     def __post_init__(self):
-        object.__setattr__(self, "efficiency", _UNIT_OPEN_LOW.check("detector.efficiency", self.efficiency))
+        object.__setattr__(self, "efficiency", _UNIT_OPEN_LOW.check_scalar("detector.efficiency", self.efficiency))
         object.__setattr__(self, "dark_count_probability",
-                           _HALF_PROB.check("detector.dark_count_probability", self.dark_count_probability))
+                           _HALF_PROB.check_scalar("detector.dark_count_probability", self.dark_count_probability))
         object.__setattr__(self, "afterpulse_probability",
-                           _PROB_CLOSED.check("detector.afterpulse_probability", self.afterpulse_probability))
+                           _PROB_CLOSED.check_scalar("detector.afterpulse_probability", self.afterpulse_probability))
         object.__setattr__(self, "misalignment_error",
-                           _HALF_PROB.check("detector.misalignment_error", self.misalignment_error))
-        object.__setattr__(self, "dead_time_s", _NONNEG.check("detector.dead_time_s", self.dead_time_s))
+                           _HALF_PROB.check_scalar("detector.misalignment_error", self.misalignment_error))
+        object.__setattr__(self, "dead_time_s", _NONNEG.check_scalar("detector.dead_time_s", self.dead_time_s))
 
 
 @dataclass(frozen=True)
@@ -127,7 +127,7 @@ class Source:
     def __post_init__(self):
         if self.repetition_rate_hz is not None:
             object.__setattr__(self, "repetition_rate_hz",
-                               _POS.check("source.repetition_rate_hz", self.repetition_rate_hz))
+                               _POS.check_scalar("source.repetition_rate_hz", self.repetition_rate_hz))
 
 
 @dataclass(frozen=True)
@@ -286,7 +286,7 @@ def check_intensity_list(field: str, values) -> tuple:
         raise InputError(field, values, "a non-empty list of mean photon numbers in descending order")
     out = []
     for i, v in enumerate(values):
-        out.append(float(_NONNEG.check(f"{field}[{i}]", v)))
+        out.append(float(_NONNEG.check_scalar(f"{field}[{i}]", v)))
     for i in range(1, len(out)):
         if not out[i] < out[i - 1]:
             raise InputError(f"{field}[{i}]", out[i], f"a value below {field}[{i-1}] = {out[i-1]!r} "

@@ -16,7 +16,8 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["Domain", "Parameter", "PROBABILITY", "COUNT", "POSITIVE_COUNT", "POSITIVE_REAL"]
+__all__ = ["Domain", "Parameter", "PROBABILITY", "COUNT", "POSITIVE_COUNT", "POSITIVE_REAL", "SECURITY_EPSILON",
+           "DPS"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -42,9 +43,13 @@ class Domain:
     def describe(self) -> str:
         """Return the allowed range in words, e.g. ``'an integer in [1, inf)'``."""
         kind = "an integer" if self.integer else "a finite real number"
+        return f"{kind} in {self.interval()}"
+
+    def interval(self) -> str:
+        """The interval alone, e.g. ``'[1, inf)'``."""
         left = "(" if (self.lower_open or math.isinf(self.lower)) else "["
         right = ")" if (self.upper_open or math.isinf(self.upper)) else "]"
-        return f"{kind} in {left}{_fmt(self.lower)}, {_fmt(self.upper)}{right}"
+        return f"{left}{_fmt(self.lower)}, {_fmt(self.upper)}{right}"
 
     def contains(self, x: float) -> bool:
         """Whether the scalar ``x`` lies in the domain."""
@@ -93,6 +98,22 @@ class Domain:
                     else arr.astype(object)
             return arr.astype(np.int64) if np.all(np.abs(arr) < 2**62) else arr.astype(object)
         return arr.astype(float, copy=False)
+
+    def check_scalar(self, field: str, value):
+        """Validate one value (a file field, an option) and return it as ``int`` or ``float``.
+
+        Like :meth:`check`, but a list, table or array is refused with the allowed range, instead of being
+        validated element by element: a field of a block or scenario holds one number.
+
+        Raises
+        ------
+        InputError
+            If ``value`` is not a single number inside the domain.
+        """
+        if isinstance(value, (list, tuple, dict, set, frozenset)) or (isinstance(value, np.ndarray)
+                                                                      and value.ndim > 0):
+            raise InputError(field, value, self.describe() + " (one number, not a list or table)")
+        return self.check(field, value)
 
     def _array_ok(self, flat) -> bool:
         """Fast whole-array test (min/max propagate NaN); the slow path finds the culprit."""
@@ -165,3 +186,10 @@ PROBABILITY = Domain(0.0, 1.0, lower_open=True, upper_open=True)
 COUNT = Domain(0, math.inf, integer=True)
 POSITIVE_COUNT = Domain(1, math.inf, integer=True)
 POSITIVE_REAL = Domain(0.0, math.inf, lower_open=True)
+#: Security parameters (eps_sec, eps_cor, eps_total) given by a user.  Values below 1e-100 are far below any
+#: target in use (common practice, no source) and would underflow float64 once split over a ledger and
+#: squared (the smoothing term of BB84), so they are refused here, naming the field as given.
+SECURITY_EPSILON = Domain(1e-100, 1.0, upper_open=True)
+#: Decimal digits of an mpmath evaluation (``--dps``): below 15 is less than float64 gives; 1000 is far beyond
+#: any need and keeps a mistyped value (10^6 digits was reported to run for about 7 minutes) from hanging.
+DPS = Domain(15, 1000, integer=True)

@@ -136,7 +136,7 @@ def test_blocksize_positive_key():
     res = proto.blocksize(_scenario(L=50.0), BlockTarget.parse("positive"), "hoeffding")
     assert res.size_kind == "pulses"
     assert res.design.expected.secret_key_length > 0
-    smaller = DD.design(_scenario(L=50.0, N=res.size / 1.05), "hoeffding")
+    smaller = DD.design(_scenario(L=50.0, N=int(res.size / 1.05)), "hoeffding")  # pulses are a count
     assert smaller.expected.secret_key_length == 0
 
 

@@ -197,8 +197,10 @@ def test_block_label_is_carried():
     proto = protocols.get("decoy-bb84")
     data = json.loads((Path(__file__).parent.parent / "examples" / "blocks" / "decoy_block.json").read_text())
     assert proto.parse_block(data).label == data["label"]
+    # the same rule as BB84 blocks: an integer label is kept as its text, anything else that is not text is refused
+    assert proto.parse_block({**data, "label": 7}).label == "7"
     with pytest.raises(InputError, match="label"):
-        proto.parse_block({**data, "label": 7})
+        proto.parse_block({**data, "label": [7]})
 
 
 def test_leakage_above_the_key_basis_detections_is_rejected():

@@ -62,12 +62,13 @@ from .. import bounds as _bounds
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
 from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..compile import compile_expression
-from ..domains import POSITIVE_COUNT, PROBABILITY, Domain
+from ..domains import POSITIVE_COUNT, PROBABILITY, SECURITY_EPSILON, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
 from ..errors import ComputationError, InputError
 from ..searching import golden_max, maximize_box, smallest_passing
 from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, FixedEfficiency, LeakageModel,
                               SecondOrderLeakage)
+from ._fields import read_label, security_fields_with, security_targets
 from ._registry import register
 from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult, NoKeyReason,
                       Status, design_no_key)
@@ -310,41 +311,28 @@ def parse_block(data) -> BB84Block:
         raise InputError(str(unknown[0]), data[unknown[0]], "one of the BB84 block fields: " + ", ".join(_BLOCK_FIELDS))
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}' for this analysis")
-    n = POSITIVE_COUNT.check("key_bits", _require(data, "key_bits", POSITIVE_COUNT.describe()))
-    k = POSITIVE_COUNT.check("test_bits", _require(data, "test_bits", POSITIVE_COUNT.describe()))
-    e = Domain(0, k, integer=True).check("test_errors", _require(data, "test_errors", f"an integer in [0, {k}]"))
+    n = POSITIVE_COUNT.check_scalar("key_bits", _require(data, "key_bits", POSITIVE_COUNT.describe()))
+    k = POSITIVE_COUNT.check_scalar("test_bits", _require(data, "test_bits", POSITIVE_COUNT.describe()))
+    e = Domain(0, k, integer=True).check_scalar("test_errors", _require(data, "test_errors", f"an integer in [0, {k}]"))
     key_qber = None
     if "ec_leak_bits" in data:
         for other in ("ec_efficiency", "key_qber"):
             if other in data:
                 raise InputError(other, data[other], "absent when ec_leak_bits is given (give one leakage form)")
-        leak = Domain(0, n, integer=True).check("ec_leak_bits", data["ec_leak_bits"])
+        leak = Domain(0, n, integer=True).check_scalar("ec_leak_bits", data["ec_leak_bits"])
         leakage: LeakageModel = DisclosedLeakage(leak)
     elif "ec_efficiency" in data or "key_qber" in data:
-        f = EFFICIENCY_DOMAIN.check("ec_efficiency", _require(data, "ec_efficiency", EFFICIENCY_DOMAIN.describe()))
-        key_qber = QBER_DOMAIN.check("key_qber", _require(data, "key_qber", QBER_DOMAIN.describe()))
+        f = EFFICIENCY_DOMAIN.check_scalar("ec_efficiency",
+                                           _require(data, "ec_efficiency", EFFICIENCY_DOMAIN.describe()))
+        key_qber = QBER_DOMAIN.check_scalar("key_qber", _require(data, "key_qber", QBER_DOMAIN.describe()))
         leakage = FixedEfficiency(f)
         if leakage.bits_upper(n, key_qber) > n:
             raise InputError("ec_efficiency", f, f"a leakage f n h(key_qber) <= key_bits = {n}")
     else:
         raise InputError("ec_leak_bits", None, "the number of bits disclosed by error correction (missing field; "
                                                "or give ec_efficiency and key_qber)")
-    if "eps_total" in data:
-        for other in ("eps_sec", "eps_cor"):
-            if other in data:
-                raise InputError(other, data[other], "absent when eps_total is given")
-        total = PROBABILITY.check("eps_total", data["eps_total"])
-        share = PROBABILITY.check("eps_cor_share", data.get("eps_cor_share", 0.1))
-        eps_cor = total * share
-        eps_sec = math.nextafter(total - eps_cor, 0.0)
-        if eps_cor <= 0 or eps_sec <= 0:
-            raise InputError("eps_total", total, "a value whose split into eps_sec and eps_cor is representable")
-    else:
-        if "eps_cor_share" in data:
-            raise InputError("eps_cor_share", data["eps_cor_share"], "used only together with eps_total")
-        eps_sec = PROBABILITY.check("eps_sec", _require(data, "eps_sec", PROBABILITY.describe()))
-        eps_cor = PROBABILITY.check("eps_cor", _require(data, "eps_cor", PROBABILITY.describe()))
-    overlap = OVERLAP_DOMAIN_BB84.check("overlap", data.get("overlap", 0.5))
+    eps_sec, eps_cor = security_targets(data)
+    overlap = OVERLAP_DOMAIN_BB84.check_scalar("overlap", data.get("overlap", 0.5))
     split = data.get("epsilon_split")
     if split is not None:
         if not isinstance(split, dict):
@@ -353,11 +341,8 @@ def parse_block(data) -> BB84Block:
         allocate(eps_sec, eps_cor, TERM_SPECS, split)  # validates names and shares
         split = dict(split)
     stats = Statistics.parse(data["statistics"]) if "statistics" in data else None
-    label = data.get("label")
-    if label is not None and not isinstance(label, (str, int)):
-        raise InputError("label", label, "a string")
-    return BB84Block(n, k, e, leakage, eps_sec, eps_cor, overlap, split, key_qber, stats,
-                     None if label is None else str(label))
+    label = read_label(data)
+    return BB84Block(n, k, e, leakage, eps_sec, eps_cor, overlap, split, key_qber, stats, label)
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -552,8 +537,8 @@ SCENARIO_SCHEMA = {
     "channel": {"qber": ("num", QBER_DOMAIN, None)},
     "budget": {"detections": ("num", POSITIVE_COUNT, None), "signals": ("num", POSITIVE_COUNT, None),
                "detection_probability": ("num", PROBABILITY, None), "signal_rate_hz": ("num", _RATE_DOMAIN, None)},
-    "security": {"eps_sec": ("num", PROBABILITY, None), "eps_cor": ("num", PROBABILITY, None),
-                 "eps_total": ("num", PROBABILITY, None), "eps_cor_share": ("num", PROBABILITY, None)},
+    "security": {"eps_sec": ("num", SECURITY_EPSILON, None), "eps_cor": ("num", SECURITY_EPSILON, None),
+                 "eps_total": ("num", SECURITY_EPSILON, None), "eps_cor_share": ("num", PROBABILITY, None)},
     "reconciliation": {"model": ("choice", ("efficiency", "second_order"), "efficiency"),
                        "efficiency": ("num", EFFICIENCY_DOMAIN, 1.1),
                        "frame_error_rate": ("num", _FRAME_DOMAIN, 0.01)},
@@ -599,7 +584,7 @@ def _check_field(section, name, value, spec):
     kind, dom, _ = spec
     fname = f"{section}.{name}"
     if kind == "num":
-        return dom.check(fname, value)
+        return dom.check_scalar(fname, value)
     if kind == "bool":
         if not isinstance(value, bool):
             raise InputError(fname, value, "true or false")
@@ -655,21 +640,7 @@ def parse_scenario(data) -> BB84Scenario:
                          "absent with budget.detections unless budget.detection_probability is also given "
                          "(signals per block = detections / detection_probability; without it there is no "
                          "rate per second, fill time or rate per signal)")
-    s = norm["security"]
-    if "eps_total" in s:
-        for other in ("eps_sec", "eps_cor"):
-            if other in s:
-                raise InputError(f"security.{other}", s[other], "absent when security.eps_total is given")
-        share = s.get("eps_cor_share", 0.1)
-        eps_cor = s["eps_total"] * share
-        eps_sec = math.nextafter(s["eps_total"] - eps_cor, 0.0)
-    else:
-        if "eps_cor_share" in s:
-            raise InputError("security.eps_cor_share", s["eps_cor_share"], "used only with security.eps_total")
-        for need in ("eps_sec", "eps_cor"):
-            if need not in s:
-                raise InputError(f"security.{need}", None, f"{PROBABILITY.describe()} (missing field)")
-        eps_sec, eps_cor = s["eps_sec"], s["eps_cor"]
+    eps_sec, eps_cor = security_targets(norm["security"], "security.")
     r = norm["reconciliation"]
     leakage = (FixedEfficiency(r["efficiency"]) if r["model"] == "efficiency"
                else SecondOrderLeakage(r["frame_error_rate"], r["efficiency"]))
@@ -703,15 +674,12 @@ def with_field(scenario: BB84Scenario, dotted_name: str, value) -> BB84Scenario:
         raise InputError("field", dotted_name, "one of: " + ", ".join(scenario_fields()))
     section, name = dotted_name.split(".", 1)
     data = {s: dict(v) for s, v in scenario.data.items()}
-    data[section][name] = value
+    if section == "security":
+        data["security"] = security_fields_with(data["security"], scenario.eps_sec, scenario.eps_cor, name, value)
+    else:
+        data[section][name] = value
     if section == "budget" and name in ("detections", "signals"):
         data["budget"].pop("signals" if name == "detections" else "detections", None)
-    if section == "security" and name in ("eps_sec", "eps_cor"):
-        data["security"].pop("eps_total", None)
-        data["security"].pop("eps_cor_share", None)
-    if section == "security" and name == "eps_total":
-        data["security"].pop("eps_sec", None)
-        data["security"].pop("eps_cor", None)
     return parse_scenario(data)
 
 

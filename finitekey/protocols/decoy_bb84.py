@@ -64,6 +64,7 @@ from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
+from ._fields import SECURITY_FIELDS, read_label, security_fields_with, security_targets
 from ._registry import register
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
@@ -219,7 +220,8 @@ class DecoyBlock:
 
 
 _BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
-                 "eps_sec", "eps_cor", "epsilon_split", "label", "pulses", "kato_expected")
+                 "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "label", "pulses",
+                 "kato_expected")
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -227,8 +229,9 @@ def _probabilities(field_name: str, values, n: int) -> tuple:
         raise InputError(field_name, values, f"a list of {n} probabilities in (0, 1) summing to 1")
     if len(values) != n:
         raise InputError(field_name, values, f"a list of {n} probabilities (one per intensity)")
-    out = tuple(float(PROBABILITY.check(f"{field_name}[{i}]", v)) if n > 1 else
-                float(Domain(0.0, 1.0, lower_open=True).check(f"{field_name}[{i}]", v)) for i, v in enumerate(values))
+    out = tuple(float(PROBABILITY.check_scalar(f"{field_name}[{i}]", v)) if n > 1 else
+                float(Domain(0.0, 1.0, lower_open=True).check_scalar(f"{field_name}[{i}]", v))
+                for i, v in enumerate(values))
     if abs(math.fsum(out) - 1.0) > 1e-9:
         raise InputError(field_name, list(values), f"probabilities summing to 1 (they sum to {math.fsum(out)!r})")
     return out
@@ -239,7 +242,7 @@ def _count_list(field_name: str, values, n: int) -> tuple:
         raise InputError(field_name, values, f"a list of {n} non-negative integers (one per intensity)")
     if len(values) != n:
         raise InputError(field_name, values, f"a list of {n} non-negative integers (one per intensity)")
-    return tuple(int(COUNT.check(f"{field_name}[{i}]", v)) for i, v in enumerate(values))
+    return tuple(int(COUNT.check_scalar(f"{field_name}[{i}]", v)) for i, v in enumerate(values))
 
 
 def _basis(data, name: str, n: int):
@@ -276,8 +279,7 @@ def parse_block(data: dict) -> DecoyBlock:
         raise InputError(unknown[0], data[unknown[0]], "one of the block fields " + ", ".join(_BLOCK_FIELDS))
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}'")
-    for key in ("intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits", "eps_sec",
-                "eps_cor"):
+    for key in ("intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits"):
         if key not in data:
             raise InputError(key, None, "a value (required field)")
     mu = check_intensity_list("intensities", data["intensities"])
@@ -287,18 +289,15 @@ def parse_block(data: dict) -> DecoyBlock:
     kd, ke = _basis(data["key_basis"], "key_basis", len(mu))
     td, te = _basis(data["test_basis"], "test_basis", len(mu))
     n_key = sum(kd)
-    leak = int(Domain(0, n_key, integer=True).check("ec_leak_bits", data["ec_leak_bits"]))
-    eps_sec = float(PROBABILITY.check("eps_sec", data["eps_sec"]))
-    eps_cor = float(PROBABILITY.check("eps_cor", data["eps_cor"]))
+    leak = int(Domain(0, n_key, integer=True).check_scalar("ec_leak_bits", data["ec_leak_bits"]))
+    eps_sec, eps_cor = security_targets(data)
     split = data.get("epsilon_split")
     if split is not None:
         split = _check_split(split)
-    label = data.get("label")
-    if label is not None and not isinstance(label, str):
-        raise InputError("label", label, "a text identifier of the block")
+    label = read_label(data)
     pulses = None
     if data.get("pulses") is not None:
-        pulses = int(COUNT.check("pulses", data["pulses"]))
+        pulses = int(COUNT.check_scalar("pulses", data["pulses"]))
         total = sum(kd) + sum(td)
         if pulses < max(total, 1):
             raise InputError("pulses", data["pulses"], f"an integer >= the detections of both bases ({total}): "
@@ -329,7 +328,7 @@ def _check_kato_expected(data, n: int, pulses) -> dict:
             v = t[k]
             if not isinstance(v, (list, tuple)) or len(v) != n:
                 raise InputError(name, v, f"a list of {n} non-negative numbers (one per intensity)")
-            vals = tuple(float(_EXPECTED.check(f"{name}[{i}]", x)) for i, x in enumerate(v))
+            vals = tuple(float(_EXPECTED.check_scalar(f"{name}[{i}]", x)) for i, x in enumerate(v))
             if pulses is not None:
                 for i, x in enumerate(vals):
                     if x > pulses:
@@ -348,7 +347,7 @@ def _check_split(split) -> dict:
     for n in SECRECY_TERMS:
         if n not in split:
             raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term")
-        out[n] = float(_SHARE.check(f"epsilon_split.{n}", split[n]))
+        out[n] = float(_SHARE.check_scalar(f"epsilon_split.{n}", split[n]))
     if abs(math.fsum(out.values()) - 1.0) > 1e-9:
         raise InputError("epsilon_split", split, "shares summing to 1")
     return out
@@ -780,14 +779,14 @@ def optimal_gllp_rate(model: LinkModel, ec_efficiency: float, sifting: float = 0
 # scenario
 # ---------------------------------------------------------------------------------------------------------
 _SCENARIO_SECTIONS = {
-    "protocol": ("name", "intensity_count", "intensities", "intensity_probabilities", "key_basis_probability",
-                 "weakest_intensity"),
+    "protocol": ("name", "label", "intensity_count", "intensities", "intensity_probabilities",
+                 "key_basis_probability", "weakest_intensity"),
     "link": ("distance_km", "fiber_loss_db_per_km", "extra_loss_db"),
     "detector": ("efficiency", "dark_count_probability", "afterpulse_probability", "misalignment_error",
                  "dead_time_s"),
     "source": ("repetition_rate_hz",),
     "block": ("pulses",),
-    "security": ("eps_sec", "eps_cor"),
+    "security": SECURITY_FIELDS,
     "reconciliation": ("efficiency",),
 }
 _REQUIRED = {
@@ -795,11 +794,11 @@ _REQUIRED = {
     "link": ("distance_km", "fiber_loss_db_per_km"),
     "detector": ("efficiency", "dark_count_probability"),
     "block": ("pulses",),
-    "security": ("eps_sec", "eps_cor"),
+    "security": (),   # eps_sec and eps_cor, or eps_total: checked by security_targets
     "reconciliation": ("efficiency",),
 }
 _EC_EFF = Domain(1.0, 10.0)
-_PULSES = Domain(1.0, 1e15)   # counts must stay below 2**50 for the exact tails
+_PULSES = Domain(1, 1e15, integer=True)   # a count; must stay below 2**50 for the exact tails
 _COUNT_K = Domain(2, 8, integer=True)
 
 
@@ -822,6 +821,11 @@ class DecoyScenario:
         Fixed ``q_X`` when given.
     weakest_intensity : float
         Value of the weakest intensity (fixed; e.g. a near-vacuum decoy), default 2e-4.
+    label : str or None
+        Free-text name of the scenario (``[protocol] label``), carried into outputs.
+    security : tuple of (str, float) or None
+        The ``[security]`` section as given (eps_sec and eps_cor, or eps_total with eps_cor_share), so that
+        a copy with one field changed keeps the form the user chose.
     """
 
     model: LinkModel
@@ -834,10 +838,14 @@ class DecoyScenario:
     intensity_probabilities: tuple | None = None
     key_basis_probability: float | None = None
     weakest_intensity: float = 2e-4
+    label: str | None = None
+    security: tuple | None = None
 
     def as_dict(self) -> dict:
         proto = {"name": PROTOCOL_NAME, "intensity_count": self.intensity_count,
                  "weakest_intensity": self.weakest_intensity}
+        if self.label is not None:
+            proto["label"] = self.label
         if self.intensities is not None:
             proto["intensities"] = list(self.intensities)
         if self.intensity_probabilities is not None:
@@ -847,7 +855,8 @@ class DecoyScenario:
         src = {} if self.model.source.repetition_rate_hz is None else {
             "repetition_rate_hz": self.model.source.repetition_rate_hz}
         out = {"protocol": proto, "link": asdict(self.model.link), "detector": asdict(self.model.detector),
-               "block": {"pulses": self.pulses}, "security": {"eps_sec": self.eps_sec, "eps_cor": self.eps_cor},
+               "block": {"pulses": self.pulses},
+               "security": dict(self.security) if self.security else {"eps_sec": self.eps_sec, "eps_cor": self.eps_cor},
                "reconciliation": {"efficiency": self.ec_efficiency}}
         if src:
             out["source"] = src
@@ -875,14 +884,15 @@ def parse_scenario(data: dict) -> DecoyScenario:
                                  + ", ".join(f"{sec}.{k}" for k in _SCENARIO_SECTIONS[sec]))
     for sec, keys in _REQUIRED.items():
         if sec not in data:
-            raise InputError(sec, None, f"a [{sec}] section (required) with " + ", ".join(keys))
+            raise InputError(sec, None, f"a [{sec}] section" + (" with " + ", ".join(keys) if keys else ""))
         for key in keys:
             if key not in data[sec]:
                 raise InputError(f"{sec}.{key}", None, "a value (required field)")
     pr = data["protocol"]
-    if pr["name"] != PROTOCOL_NAME:
+    if not isinstance(pr["name"], str) or pr["name"] != PROTOCOL_NAME:
         raise InputError("protocol.name", pr["name"], f"'{PROTOCOL_NAME}'")
-    k = int(_COUNT_K.check("protocol.intensity_count", pr.get("intensity_count", 3)))
+    label = read_label(pr, "protocol.label")
+    k = int(_COUNT_K.check_scalar("protocol.intensity_count", pr.get("intensity_count", 3)))
     mu = None
     if "intensities" in pr:
         mu = check_intensity_list("protocol.intensities", pr["intensities"])
@@ -894,8 +904,8 @@ def parse_scenario(data: dict) -> DecoyScenario:
         probs = _probabilities("protocol.intensity_probabilities", pr["intensity_probabilities"], k)
     qx = None
     if "key_basis_probability" in pr:
-        qx = float(PROBABILITY.check("protocol.key_basis_probability", pr["key_basis_probability"]))
-    weakest = float(Domain(0.0, 1.0).check("protocol.weakest_intensity", pr.get("weakest_intensity", 2e-4)))
+        qx = float(PROBABILITY.check_scalar("protocol.key_basis_probability", pr["key_basis_probability"]))
+    weakest = float(Domain(0.0, 1.0).check_scalar("protocol.weakest_intensity", pr.get("weakest_intensity", 2e-4)))
     if mu is not None:
         weakest = mu[-1]
     ln = data["link"]
@@ -904,12 +914,11 @@ def parse_scenario(data: dict) -> DecoyScenario:
     det = Detector(dt["efficiency"], dt["dark_count_probability"], dt.get("afterpulse_probability", 0.0),
                    dt.get("misalignment_error", 0.0), dt.get("dead_time_s", 0.0))
     src = Source(data.get("source", {}).get("repetition_rate_hz"))
-    pulses = float(_PULSES.check("block.pulses", data["block"]["pulses"]))
-    sec = data["security"]
-    eps_sec = float(PROBABILITY.check("security.eps_sec", sec["eps_sec"]))
-    eps_cor = float(PROBABILITY.check("security.eps_cor", sec["eps_cor"]))
-    f = float(_EC_EFF.check("reconciliation.efficiency", data["reconciliation"]["efficiency"]))
-    return DecoyScenario(LinkModel(link, det, src), pulses, eps_sec, eps_cor, f, k, mu, probs, qx, weakest)
+    pulses = float(_PULSES.check_scalar("block.pulses", data["block"]["pulses"]))
+    eps_sec, eps_cor = security_targets(data["security"], "security.")
+    f = float(_EC_EFF.check_scalar("reconciliation.efficiency", data["reconciliation"]["efficiency"]))
+    return DecoyScenario(LinkModel(link, det, src), pulses, eps_sec, eps_cor, f, k, mu, probs, qx, weakest, label,
+                         tuple(data["security"].items()))
 
 
 def default_scenario() -> DecoyScenario:
@@ -935,7 +944,10 @@ def with_field(scenario: DecoyScenario, dotted_name: str, value) -> DecoyScenari
         raise InputError("field", dotted_name, "one of " + ", ".join(scenario_fields()))
     sec, key = dotted_name.split(".", 1)
     d = scenario.as_dict()
-    d.setdefault(sec, {})[key] = value
+    if sec == "security":  # the same rules as BB84 (security_fields_with)
+        d["security"] = security_fields_with(d["security"], scenario.eps_sec, scenario.eps_cor, key, value)
+    else:
+        d.setdefault(sec, {})[key] = value
     if sec == "protocol" and key == "weakest_intensity":
         d["protocol"].pop("intensities", None)
     return parse_scenario(d)

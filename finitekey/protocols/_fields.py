@@ -1,0 +1,106 @@
+"""Parsing helpers shared by the protocols' block and scenario readers.
+
+Every protocol reads the same security fields (``eps_sec`` and ``eps_cor``, or ``eps_total`` with an optional
+``eps_cor_share``) and the same free-text ``label``; they are read here once, so the protocols accept the same
+forms with the same meaning and the same error messages.
+"""
+
+from __future__ import annotations
+
+import math
+
+from ..domains import PROBABILITY, SECURITY_EPSILON
+from ..errors import InputError
+
+__all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "security_targets", "security_fields_with", "split_eps_total",
+           "read_label"]
+
+#: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
+DEFAULT_EPS_COR_SHARE = 0.1
+#: The security fields of a block (or of a scenario's ``[security]`` section).
+SECURITY_FIELDS = ("eps_sec", "eps_cor", "eps_total", "eps_cor_share")
+
+
+def split_eps_total(total: float, share: float, field: str = "eps_total", share_field: str = "eps_cor_share"
+                    ) -> tuple:
+    """``(eps_sec, eps_cor)`` from a total: ``eps_cor = total * share``, ``eps_sec`` just below the rest.
+
+    ``eps_sec`` is rounded one float down from ``total - eps_cor`` so that ``eps_sec + eps_cor <= total``.
+
+    Raises
+    ------
+    InputError
+        If either part falls below :data:`~finitekey.domains.SECURITY_EPSILON`.
+    """
+    eps_cor = total * share
+    eps_sec = math.nextafter(total - eps_cor, 0.0)
+    if not SECURITY_EPSILON.contains(eps_cor):
+        raise InputError(share_field, share, f"a share leaving eps_cor = {field} * share in "
+                         f"{SECURITY_EPSILON.interval()}")
+    if not SECURITY_EPSILON.contains(eps_sec):
+        raise InputError(field, total, "a total whose split into eps_sec and eps_cor keeps both in "
+                         + SECURITY_EPSILON.interval())
+    return eps_sec, eps_cor
+
+
+def security_targets(given: dict, prefix: str = "") -> tuple:
+    """Read ``(eps_sec, eps_cor)`` from a mapping holding eps_sec and eps_cor, or eps_total [and eps_cor_share].
+
+    Parameters
+    ----------
+    given : dict
+        The block, or the scenario's ``[security]`` section.
+    prefix : str
+        Prefix of the field names in messages, e.g. ``"security."``.
+
+    Raises
+    ------
+    InputError
+        Naming the field as given, with the value as given, for a missing, mixed or out-of-range value.
+    """
+    if "eps_total" in given:
+        for other in ("eps_sec", "eps_cor"):
+            if other in given:
+                raise InputError(prefix + other, given[other], f"absent when {prefix}eps_total is given")
+        total = SECURITY_EPSILON.check_scalar(prefix + "eps_total", given["eps_total"])
+        share = PROBABILITY.check_scalar(prefix + "eps_cor_share",
+                                         given.get("eps_cor_share", DEFAULT_EPS_COR_SHARE))
+        return split_eps_total(float(total), float(share), prefix + "eps_total", prefix + "eps_cor_share")
+    if "eps_cor_share" in given:
+        raise InputError(prefix + "eps_cor_share", given["eps_cor_share"], f"used only with {prefix}eps_total")
+    out = []
+    for name in ("eps_sec", "eps_cor"):
+        if name not in given:
+            raise InputError(prefix + name, None, SECURITY_EPSILON.describe() + f" (or give {prefix}eps_total)")
+        out.append(float(SECURITY_EPSILON.check_scalar(prefix + name, given[name])))
+    return tuple(out)
+
+
+def security_fields_with(given: dict, eps_sec: float, eps_cor: float, name: str, value) -> dict:
+    """The security fields with ``name`` set to ``value`` (a sweep over one security field).
+
+    Setting ``eps_sec`` or ``eps_cor`` of a scenario given by ``eps_total`` switches it to the explicit form,
+    keeping the other target at its current value (``eps_sec``, ``eps_cor``); setting ``eps_total`` or
+    ``eps_cor_share`` switches to (or stays in) the total form.
+    """
+    out = dict(given)
+    if name in ("eps_sec", "eps_cor"):
+        if "eps_total" in out:
+            out = {"eps_sec": eps_sec, "eps_cor": eps_cor}
+    elif name in ("eps_total", "eps_cor_share"):
+        out.pop("eps_sec", None)
+        out.pop("eps_cor", None)
+        if name == "eps_cor_share" and "eps_total" not in out:
+            out["eps_total"] = eps_sec + eps_cor
+    out[name] = value
+    return out
+
+
+def read_label(given: dict, field: str = "label"):
+    """The optional free-text label (a string; an integer is taken as its decimal text), or None."""
+    label = given.get("label")
+    if label is None:
+        return None
+    if isinstance(label, bool) or not isinstance(label, (str, int)):
+        raise InputError(field, label, "a text identifier (a string)")
+    return str(label)

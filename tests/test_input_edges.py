@@ -1,0 +1,259 @@
+"""Wrong, mislabelled or oddly encoded inputs: every one ends in one line naming the field (exit 2), never a
+traceback; and the two protocols accept the same common fields with the same meaning.
+
+Expected values here are the project's own rules (field names, declared ranges), not outside numbers; where a
+number is compared, its source is named beside the check.
+"""
+
+import copy
+import json
+import math
+
+import pytest
+
+from finitekey import protocols
+from finitekey.cli import main
+from finitekey.errors import InputError
+from finitekey.files import read_json, read_records, read_toml
+
+BB84_BLOCK = {"protocol": "bb84", "key_bits": 1000000, "test_bits": 100000, "test_errors": 2000,
+              "ec_leak_bits": 160000, "eps_sec": 1e-10, "eps_cor": 1e-15}
+
+DECOY_BLOCK = {"protocol": "decoy-bb84", "intensities": [0.6184, 0.0946, 0.0002],
+               "intensity_probabilities": [0.9008, 0.0913, 0.0079],
+               "key_basis": {"detections": [173646385, 2719648, 563], "errors": [2926542, 46159, 42]},
+               "test_basis": {"detections": [1070573, 16767, 3], "errors": [18043, 285, 0]},
+               "ec_leak_bits": 24376420, "eps_sec": 1e-10, "eps_cor": 1e-15}
+
+DECOY_TOML = """\
+[protocol]
+name = "decoy-bb84"
+[link]
+distance_km = {distance}
+fiber_loss_db_per_km = 0.2
+[detector]
+efficiency = 0.1
+dark_count_probability = 6e-7
+[block]
+pulses = {pulses}
+[security]
+{security}
+[reconciliation]
+efficiency = 1.16
+"""
+
+BB84_TOML = """\
+[protocol]
+name = "bb84"
+[channel]
+qber = {qber}
+[budget]
+detections = {detections}
+[security]
+{security}
+"""
+
+SECURITY = "eps_sec = 1e-10\neps_cor = 1e-15"
+
+
+def decoy_toml(distance="50.0", pulses="1e10", security=SECURITY):
+    return DECOY_TOML.format(distance=distance, pulses=pulses, security=security)
+
+
+def bb84_toml(qber="0.02", detections="1000000", security=SECURITY):
+    return BB84_TOML.format(qber=qber, detections=detections, security=security)
+
+
+def write(tmp_path, name, text, encoding="utf-8"):
+    p = tmp_path / name
+    p.write_text(text, encoding=encoding)
+    return str(p)
+
+
+def run(capsys, argv):
+    rc = main(argv)
+    out, err = capsys.readouterr()
+    return rc, out, err
+
+
+def one_line_error(rc, out, err, *needles):
+    """Exit 2, nothing on stdout, exactly one line on stderr, containing every needle."""
+    assert rc == 2, (rc, out, err)
+    assert out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert "Traceback" not in err
+    for n in needles:
+        assert n in lines[0], (n, lines[0])
+    return lines[0]
+
+
+# --- a list or table where one number is expected -------------------------------------------------------------
+@pytest.mark.parametrize("text, field", [
+    (decoy_toml(distance="[1, 2]"), "link.distance_km"),
+    (decoy_toml(pulses="[1e10]"), "block.pulses"),
+    (decoy_toml(security="eps_sec = [1e-10]\neps_cor = 1e-15"), "security.eps_sec"),
+    (decoy_toml(distance="{ a = 1 }"), "link.distance_km"),
+    (bb84_toml(qber="[0.01, 0.02]"), "channel.qber"),
+    (bb84_toml(detections="[1000000]"), "budget.detections"),
+])
+def test_list_where_a_number_is_expected_is_one_line(tmp_path, capsys, text, field):
+    path = write(tmp_path, "s.toml", text)
+    line = one_line_error(*run(capsys, ["design", path]), field, "not a list")
+    assert "is not allowed" in line
+
+
+@pytest.mark.parametrize("proto_block, path_to, value", [
+    (BB84_BLOCK, ("key_bits",), [1, 2]),
+    (BB84_BLOCK, ("eps_sec",), [1e-10]),
+    (DECOY_BLOCK, ("ec_leak_bits",), [1, 2]),
+    (DECOY_BLOCK, ("key_basis", "detections", 0), [1, 2]),
+    (DECOY_BLOCK, ("intensities", 1), [0.1]),
+    (DECOY_BLOCK, ("intensity_probabilities", 0), {"a": 1}),
+])
+def test_block_field_holding_a_list_is_one_line(tmp_path, capsys, proto_block, path_to, value):
+    block = copy.deepcopy(proto_block)
+    target = block
+    for key in path_to[:-1]:
+        target = target[key]
+    target[path_to[-1]] = value
+    path = write(tmp_path, "b.json", json.dumps(block))
+    field = path_to[0] + "".join(f".{k}" if isinstance(k, str) else f"[{k}]" for k in path_to[1:])
+    one_line_error(*run(capsys, ["keylength", path]), field)
+
+
+# --- None never shows in a message ----------------------------------------------------------------------------
+def test_missing_field_says_missing_not_none(tmp_path, capsys):
+    block = dict(BB84_BLOCK)
+    del block["test_errors"]
+    path = write(tmp_path, "b.json", json.dumps(block))
+    line = one_line_error(*run(capsys, ["keylength", path]), "test_errors is missing")
+    assert "None" not in line and "(missing field)" not in line
+
+
+@pytest.mark.parametrize("field, allowed", [("x", "a number (missing field)"), ("x", "a value (required field)"),
+                                            ("x", "a number")])
+def test_input_error_formats_none_as_missing(field, allowed):
+    text = str(InputError(field, None, allowed))
+    assert text == "x is missing; expected " + allowed.split(" (")[0]
+
+
+def test_missing_security_fields_in_both_protocols(tmp_path, capsys):
+    for text, field in ((decoy_toml(security="eps_sec = 1e-10"), "security.eps_cor"),
+                        (bb84_toml(security="eps_cor = 1e-15"), "security.eps_sec")):
+        path = write(tmp_path, "s.toml", text)
+        line = one_line_error(*run(capsys, ["design", path]), f"{field} is missing")
+        assert "None" not in line
+
+
+# --- tiny epsilons are named as given, with the value as given ------------------------------------------------
+@pytest.mark.parametrize("text, field", [
+    (decoy_toml(security="eps_sec = 5e-324\neps_cor = 1e-15"), "security.eps_sec"),
+    (bb84_toml(security="eps_sec = 5e-324\neps_cor = 1e-15"), "security.eps_sec"),
+    (decoy_toml(security="eps_sec = 1e-10\neps_cor = 5e-324"), "security.eps_cor"),
+    (bb84_toml(security="eps_total = 5e-324"), "security.eps_total"),
+])
+def test_subnormal_epsilon_names_the_field_and_value_as_given(tmp_path, capsys, text, field):
+    path = write(tmp_path, "s.toml", text)
+    line = one_line_error(*run(capsys, ["design", path]), f"{field} = 5e-324 is not allowed")
+    assert float(line.split(" = ")[1].split(" ")[0]) == 5e-324  # the value shown round-trips
+
+
+@pytest.mark.parametrize("block", [dict(BB84_BLOCK, eps_sec=5e-324), dict(DECOY_BLOCK, eps_sec=5e-324)])
+def test_subnormal_epsilon_in_a_block(tmp_path, capsys, block):
+    path = write(tmp_path, "b.json", json.dumps(block))
+    one_line_error(*run(capsys, ["keylength", path]), "eps_sec = 5e-324 is not allowed")
+
+
+def test_eps_cor_share_that_underflows_names_the_share():
+    block = {k: v for k, v in BB84_BLOCK.items() if k not in ("eps_sec", "eps_cor")}
+    with pytest.raises(InputError) as info:
+        protocols.get("bb84").parse_block(block | {"eps_total": 1e-10, "eps_cor_share": 1e-300})
+    assert info.value.field == "eps_cor_share" and info.value.value == 1e-300
+
+
+# --- counts are integers ----------------------------------------------------------------------------------------
+def test_fractional_pulses_refused_integral_float_accepted(tmp_path, capsys):
+    bad = write(tmp_path, "bad.toml", decoy_toml(pulses="12345.6"))
+    one_line_error(*run(capsys, ["design", bad]), "block.pulses = 12345.6", "an integer")
+    sc = protocols.get("decoy-bb84").parse_scenario(read_toml(write(tmp_path, "ok.toml", decoy_toml(pulses="1e10"))))
+    assert sc.pulses == 1e10
+
+
+@pytest.mark.parametrize("block, field", [(dict(BB84_BLOCK, key_bits=1000000.5), "key_bits"),
+                                          (dict(DECOY_BLOCK, pulses=1e9 + 0.5), "pulses"),
+                                          (dict(DECOY_BLOCK, ec_leak_bits=24376420.25), "ec_leak_bits")])
+def test_fractional_block_counts_refused(block, field):
+    with pytest.raises(InputError) as info:
+        protocols.get(block["protocol"]).parse_block(block)
+    assert info.value.field == field
+
+
+# --- UTF-8 byte-order mark --------------------------------------------------------------------------------------
+def test_byte_order_mark_is_accepted_in_every_input_format(tmp_path):
+    bom = "\ufeff"
+    assert read_json(write(tmp_path, "b.json", bom + json.dumps(BB84_BLOCK))) == BB84_BLOCK
+    recs, batch = read_records(write(tmp_path, "b.jsonl", bom + json.dumps(BB84_BLOCK) + "\n"))
+    assert batch and recs[0][1] == BB84_BLOCK
+    header = ",".join(BB84_BLOCK)
+    recs, _ = read_records(write(tmp_path, "b.csv", bom + header + "\n" + ",".join(map(str, BB84_BLOCK.values()))))
+    assert recs[0][1]["protocol"] == "bb84" and recs[0][1]["key_bits"] == 1000000
+    assert read_toml(write(tmp_path, "s.toml", bom + bb84_toml()))["channel"]["qber"] == 0.02
+
+
+def test_byte_order_mark_json_block_through_the_cli(tmp_path, capsys):
+    path = write(tmp_path, "b.json", json.dumps(BB84_BLOCK), encoding="utf-8-sig")
+    rc, out, err = run(capsys, ["keylength", path, "--json"])
+    assert rc == 0 and err == "" and json.loads(out)["secret_key_length"] > 0
+
+
+def test_csv_label_stays_text(tmp_path):
+    header = ",".join(BB84_BLOCK) + ",label"
+    recs, _ = read_records(write(tmp_path, "b.csv", header + "\n" + ",".join(map(str, BB84_BLOCK.values())) + ",0001"))
+    assert recs[0][1]["label"] == "0001"
+    assert protocols.get("bb84").parse_block(recs[0][1]).label == "0001"
+
+
+# --- a name given twice is refused, not silently the last -------------------------------------------------------
+def test_repeated_json_key_is_refused(tmp_path, capsys):
+    text = json.dumps(BB84_BLOCK)[:-1] + ', "test_errors": 5}'
+    path = write(tmp_path, "b.json", text)
+    one_line_error(*run(capsys, ["keylength", path]), "test_errors", "given once")
+    path = write(tmp_path, "b.jsonl", json.dumps(BB84_BLOCK) + "\n" + text + "\n")
+    one_line_error(*run(capsys, ["keylength", path]), "line 2", "test_errors", "given once")
+
+
+def test_repeated_csv_column_is_refused(tmp_path, capsys):
+    header = ",".join(BB84_BLOCK) + ",test_errors"
+    row = ",".join(map(str, BB84_BLOCK.values())) + ",5"
+    path = write(tmp_path, "b.csv", header + "\n" + row + "\n")
+    one_line_error(*run(capsys, ["keylength", path]), "test_errors", "once")
+
+
+# --- parity of the two protocols --------------------------------------------------------------------------------
+def test_decoy_scenario_accepts_label_and_eps_total_like_bb84(tmp_path):
+    bb84 = protocols.get("bb84").parse_scenario(read_toml(write(
+        tmp_path, "b.toml", bb84_toml(security="eps_total = 1e-9\neps_cor_share = 0.2"))))
+    text = decoy_toml(security="eps_total = 1e-9\neps_cor_share = 0.2").replace(
+        'name = "decoy-bb84"', 'name = "decoy-bb84"\nlabel = "test link"')
+    decoy = protocols.get("decoy-bb84").parse_scenario(read_toml(write(tmp_path, "d.toml", text)))
+    assert (decoy.eps_sec, decoy.eps_cor) == (bb84.eps_sec, bb84.eps_cor)
+    assert decoy.eps_sec + decoy.eps_cor <= 1e-9 and math.isclose(decoy.eps_cor, 2e-10)
+    assert decoy.label == "test link" and decoy.as_dict()["protocol"]["label"] == "test link"
+    # a copy with one field changed keeps the total form
+    again = protocols.get("decoy-bb84").with_field(decoy, "link.distance_km", 20.0)
+    assert (again.eps_sec, again.eps_cor) == (decoy.eps_sec, decoy.eps_cor)
+    changed = protocols.get("decoy-bb84").with_field(decoy, "security.eps_sec", 1e-12)
+    assert changed.eps_sec == 1e-12 and changed.eps_cor == decoy.eps_cor
+
+
+def test_decoy_block_accepts_eps_total_like_bb84():
+    common = {"eps_total": 1e-9}
+    bb = protocols.get("bb84").parse_block({k: v for k, v in BB84_BLOCK.items() if k not in ("eps_sec", "eps_cor")}
+                                           | common)
+    dc = protocols.get("decoy-bb84").parse_block({k: v for k, v in DECOY_BLOCK.items()
+                                                  if k not in ("eps_sec", "eps_cor")} | common)
+    assert (dc.eps_sec, dc.eps_cor) == (bb.eps_sec, bb.eps_cor)
+    with pytest.raises(InputError) as info:
+        protocols.get("decoy-bb84").parse_block(dict(DECOY_BLOCK, eps_total=1e-9))
+    assert info.value.field == "eps_sec"
