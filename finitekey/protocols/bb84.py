@@ -24,6 +24,11 @@ the test bits by the selected statistics method:
 * ``"serfling"``: :math:`\\phi^{\\rm up} = e/k + \\mu` with the random-sampling
   (Serfling-type) deviation :math:`\\mu` (finitekey.bounds.random_sampling).
 
+The analysis needs the block to be a number of rounds fixed before it, each round's bases chosen
+independently with fixed probabilities and announced only after the block (block field ``closed_by``,
+default ``"rounds"``): then, given ``n`` and ``k``, the test positions are a uniformly random subset of the
+sifted rounds.  A block closed when key and test quotas fill is refused (Pfister et al. 2016, [6]_).
+
 The protocol is :math:`\\varepsilon_{cor}`-correct and
 :math:`(2\\varepsilon_s + \\varepsilon_{PA})`-secret.  The formula is composed
 symbolically once from :mod:`finitekey.entropy` and the bound's sympy
@@ -43,6 +48,8 @@ References
 .. [5] H.-K. Lo, H. F. Chau, M. Ardehali, "Efficient quantum key distribution
    scheme and a proof of its unconditional security", J. Cryptology 18, 133 (2005)
    -- the biased basis choice.
+.. [6] C. Pfister, N. Lütkenhaus, S. Wehner, P. J. Coles, "Sifting attacks in finite-size quantum key
+   distribution", New J. Phys. 18, 053001 (2016) -- why quota-closed blocks are refused.
 """
 
 from __future__ import annotations
@@ -68,6 +75,7 @@ from ..errors import ComputationError, InputError
 from ..searching import golden_max, maximize_box, smallest_passing
 from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, FixedEfficiency, LeakageModel,
                               SecondOrderLeakage)
+from ._block_rule import parse_closure
 from ._fields import read_label, security_fields_with, security_targets
 from ._registry import register
 from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult, NoKeyReason,
@@ -114,10 +122,17 @@ TERM_SPECS = (
 _PE_DESCRIPTION = ("parameter estimation: probability that the phase-error bound fails; enters the secrecy only "
                    "through smoothing = sqrt(this), hence weight 0")
 
+#: The block rule (proofs_notes/protocols/bb84.md, "The block rule"); blocks closed by quotas are refused.
+BLOCK_RULE_ASSUMPTION = (
+    "block closed after a number of rounds fixed before it (closed_by = rounds), never when key and test quotas "
+    "fill; each round's bases chosen independently with fixed probabilities and announced only after the "
+    "block's last round is measured, so the attack cannot depend on them")
+
 ASSUMPTIONS = (
     "qubit source or entanglement-based source; the two measurements have maximal overlap c (1/2 for ideal BB84)",
-    "basis choices are independent of everything else; detection is basis independent, so given n and k the test "
-    "positions are a uniformly random subset of the n + k sifted rounds",
+    BLOCK_RULE_ASSUMPTION,
+    "detection is basis independent, so given n and k the test positions are a uniformly random k-subset of the "
+    "n + k sifted rounds (exchangeability of i.i.d. basis labels), as the phase-error bound needs",
     "coherent (general) attacks; the eavesdropper may hold quantum side information",
     "the classical channel is authenticated; leak_EC counts every bit disclosed during reconciliation",
     "error verification with a two-universal hash of ceil(log2(1/eps_cor)) bits, counted as leakage",
@@ -129,8 +144,11 @@ MODELLED_LEAKAGE_ASSUMPTION = (
     "reconciliation disclosed at most that many bits (give ec_leak_bits at run time)")
 
 
-def _assumptions(leakage) -> tuple:
-    return ASSUMPTIONS if isinstance(leakage, DisclosedLeakage) else ASSUMPTIONS + (MODELLED_LEAKAGE_ASSUMPTION,)
+def _assumptions(block) -> tuple:
+    out = ASSUMPTIONS
+    if block.rounds is not None:
+        out = out + (f"the block has rounds = {block.rounds} (as declared), a number fixed before it",)
+    return out if isinstance(block.leakage, DisclosedLeakage) else out + (MODELLED_LEAKAGE_ASSUMPTION,)
 
 
 REFERENCES = (
@@ -262,6 +280,16 @@ class BB84Block:
         Method requested in the block itself (the caller's choice wins).
     label : str or None
         Free-text identifier carried into batch output.
+    rounds : int or None
+        Number of rounds of the block, if declared (echoed in the result's assumptions).
+
+    Notes
+    -----
+    The analysis holds only for a block closed after a number of rounds fixed before it, with each round's
+    bases chosen independently with fixed probabilities and announced after the block (block field
+    ``closed_by = "rounds"``, the default).  A block closed when key and test quotas fill
+    (``closed_by = "quota"``) is refused by :func:`parse_block`: its test bits are not a uniformly random
+    sample of the sifted bits (proofs_notes/protocols/bb84.md, "The block rule").
     """
 
     key_bits: int
@@ -275,6 +303,7 @@ class BB84Block:
     key_qber: float | None = None
     statistics: Statistics | None = None
     label: str | None = None
+    rounds: int | None = None
 
     def leak_bits(self) -> int:
         """Integer number of leaked bits, certainly >= the model's value."""
@@ -283,7 +312,7 @@ class BB84Block:
 
 _BLOCK_FIELDS = ("protocol", "key_bits", "test_bits", "test_errors", "ec_leak_bits", "ec_efficiency", "key_qber",
                  "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "overlap", "statistics",
-                 "label")
+                 "label", "closed_by", "rounds")
 
 
 def _require(data, name, what):
@@ -297,7 +326,10 @@ def parse_block(data) -> BB84Block:
 
     Required: ``key_bits``, ``test_bits``, ``test_errors``, ``eps_sec`` and ``eps_cor`` (or ``eps_total`` with
     optional ``eps_cor_share``, default 0.1), and either ``ec_leak_bits`` or ``ec_efficiency`` with ``key_qber``.
-    Optional: ``protocol`` (must be ``"bb84"``), ``overlap``, ``epsilon_split``, ``statistics``, ``label``.
+    Optional: ``protocol`` (must be ``"bb84"``), ``overlap``, ``epsilon_split``, ``statistics``, ``label``,
+    ``closed_by`` (how the block was closed: ``"rounds"``, the default, a number of rounds fixed before the
+    block; ``"quota"`` is refused, see :class:`BB84Block`) and ``rounds`` (the number of rounds, at least
+    ``key_bits + test_bits``; echoed in the result's assumptions).
 
     Raises
     ------
@@ -311,6 +343,7 @@ def parse_block(data) -> BB84Block:
         raise InputError(str(unknown[0]), data[unknown[0]], "one of the BB84 block fields: " + ", ".join(_BLOCK_FIELDS))
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}' for this analysis")
+    parse_closure(data)
     n = POSITIVE_COUNT.check_scalar("key_bits", _require(data, "key_bits", POSITIVE_COUNT.describe()))
     k = POSITIVE_COUNT.check_scalar("test_bits", _require(data, "test_bits", POSITIVE_COUNT.describe()))
     e = Domain(0, k, integer=True).check_scalar("test_errors", _require(data, "test_errors", f"an integer in [0, {k}]"))
@@ -342,7 +375,15 @@ def parse_block(data) -> BB84Block:
         split = dict(split)
     stats = Statistics.parse(data["statistics"]) if "statistics" in data else None
     label = read_label(data)
-    return BB84Block(n, k, e, leakage, eps_sec, eps_cor, overlap, split, key_qber, stats, label)
+    rounds = None
+    if "rounds" in data:
+        allowed = (f"an integer >= key_bits + test_bits = {n + k}: the number of rounds of the block (each "
+                   "gives at most one sifted bit)")
+        try:
+            rounds = int(Domain(n + k, math.inf, integer=True).check_scalar("rounds", data["rounds"]))
+        except InputError:
+            raise InputError("rounds", data["rounds"], allowed) from None
+    return BB84Block(n, k, e, leakage, eps_sec, eps_cor, overlap, split, key_qber, stats, label, rounds)
 
 
 # ---------------------------------------------------------------------------------------------------------------
@@ -460,7 +501,7 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
         terms["key_length_lower_bound"] = float(ball.lower())
     if not usable:
         estimates["note_phase_error_at_least_half"] = 1.0
-    return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, _assumptions(block.leakage), terms,
+    return KeyLengthResult(PROTOCOL_NAME, length, ledger, stats.value, _assumptions(block), terms,
                            estimates, FORMULA_LATEX, REFERENCES,
                            status=_key_status(length, usable, phi_up, e / k, terms))
 

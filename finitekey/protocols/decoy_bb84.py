@@ -64,6 +64,7 @@ from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
+from ._block_rule import parse_closure
 from ._fields import SECURITY_FIELDS, read_label, security_fields_with, security_targets
 from ._registry import register
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
@@ -94,6 +95,12 @@ REFERENCES = (
     "M. Tomamichel, C. C. W. Lim, N. Gisin, R. Renner, Nat. Commun. 3, 634 (2012)",
 )
 
+#: The block rule (proofs_notes/protocols/decoy_bb84.md, "The block rule"); blocks closed by quotas are refused.
+BLOCK_RULE_ASSUMPTION = (
+    "block closed after a number of pulses fixed before it (closed_by = rounds), never when detection quotas "
+    "fill; each pulse's intensity and both bases chosen independently with fixed probabilities and announced "
+    "only after the block's last pulse is measured, so the attack cannot depend on them")
+
 ASSUMPTIONS = (
     "Alice's pulses are phase-randomised weak coherent states with Poissonian photon number; intensities and "
     "bases are chosen independently at random each round and the chosen intensity is not otherwise revealed",
@@ -101,6 +108,7 @@ ASSUMPTIONS = (
     "threshold detectors with double clicks assigned a random bit",
     "fixed-length protocol analysed as in the 2014 proof: the estimation failure events are charged once "
     "each to eps_sec (see the proof note for what this assumes about conditioning on acceptance)",
+    BLOCK_RULE_ASSUMPTION,
     "the single-photon key and test detections form a uniformly random split of all single-photon detections "
     "(basis chosen independently of the photon number and of the adversary)",
     "ec_leak_bits bounds what error correction can disclose: for interactive or rate-adaptive codes, the "
@@ -188,6 +196,11 @@ class DecoyBlock:
 
     ``pulses`` (total pulses sent) and ``kato_expected`` (pre-registered expected counts, tables like
     ``key_basis``/``test_basis``) are optional and used by ``statistics="kato"`` only.
+
+    The analysis holds only for a block of a number of pulses fixed before it, each pulse's intensity and
+    bases chosen independently with fixed probabilities and announced after the block (block field
+    ``closed_by = "rounds"``, the default; ``"quota"``, a block closed when detection quotas fill, is refused
+    by :func:`parse_block`; proofs_notes/protocols/decoy_bb84.md, "The block rule").
     """
 
     intensities: tuple
@@ -221,7 +234,7 @@ class DecoyBlock:
 
 _BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
                  "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "label", "pulses",
-                 "kato_expected")
+                 "kato_expected", "closed_by")
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -266,11 +279,14 @@ def _basis(data, name: str, n: int):
 def parse_block(data: dict) -> DecoyBlock:
     """Validate a block dictionary (JSON) and return a :class:`DecoyBlock`.
 
+    The optional field ``closed_by`` says how the block was closed: ``"rounds"`` (the default: a number of
+    pulses fixed before the block) is the only closure the analysis covers; ``"quota"`` is refused.
+
     Raises
     ------
     InputError
         Naming the field (``"key_basis.detections[1]"``, ``"intensities[2]"``, ...) for anything missing,
-        unknown, of the wrong type or out of range.
+        unknown, of the wrong type or out of range, and for ``closed_by = "quota"``.
     """
     if not isinstance(data, dict):
         raise InputError("block", data, "a JSON object with the decoy-bb84 block fields")
@@ -279,6 +295,7 @@ def parse_block(data: dict) -> DecoyBlock:
         raise InputError(unknown[0], data[unknown[0]], "one of the block fields " + ", ".join(_BLOCK_FIELDS))
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}'")
+    parse_closure(data, "pulses")
     for key in ("intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits"):
         if key not in data:
             raise InputError(key, None, "a value (required field)")
