@@ -183,11 +183,13 @@ def test_verification_tag_is_exact_ceiling():
 def test_ledger_adds_up_and_names_every_term():
     res = key_length(block())
     led = res.ledger
-    assert [t.name for t in led.terms] == ["error_verification", "smoothing", "privacy_amplification",
-                                           "parameter_estimation"]
+    assert [t.name for t in led.terms] == ["error_verification", "smoothing", "privacy_amplification"]
     assert led.eps_sec <= EPS_SEC and led.eps_cor <= EPS_COR
     assert led.eps_sec == pytest.approx(EPS_SEC, rel=1e-12)
-    assert led.epsilon("parameter_estimation") <= led.epsilon("smoothing") ** 2
+    # the phase-error bound is evaluated at the smoothing parameter squared, never above it (exact rationals)
+    from fractions import Fraction
+    assert Fraction(led.failure_probability("smoothing")) <= Fraction(led.smoothing("smoothing")) ** 2
+    assert res.estimates["parameter_estimation_failure"] == led.failure_probability("smoothing")
     d = res.to_dict()
     for key in ("protocol", "secret_key_length", "eps_total", "eps_sec", "eps_cor", "ledger", "statistics",
                 "assumptions", "terms", "estimates", "formula", "references"):

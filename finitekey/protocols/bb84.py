@@ -67,7 +67,7 @@ from flint import arb, ctx
 
 from .. import bounds as _bounds
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
-from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
+from ..budget import Charge, Ledger, Role, TermSpec, allocate, squared_down
 from ..compile import compile_expression
 from ..domains import POSITIVE_COUNT, PROBABILITY, SECURITY_EPSILON, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
@@ -108,19 +108,18 @@ class Statistics(enum.Enum):
 #: Overlap of the two measurements: 1/2 for ideal conjugate qubit bases, up to (not including) 1.
 OVERLAP_DOMAIN_BB84 = Domain(0.5, 1.0, upper_open=True)
 
-#: The ledger of the analysis.  The smoothing epsilon enters the secrecy twice (trace-distance argument of the
-#: leftover hash lemma with smoothing); the phase-error bound is applied with failure probability smoothing^2.
+#: The ledger of the analysis (proof note, section "Epsilon ledger").  ``smoothing`` is the smoothing parameter of
+#: the min-entropy: the phase-error bound it guards is evaluated at failure probability smoothing^2, and it costs
+#: 2 smoothing of secrecy; privacy amplification is the leftover-hash term.
 TERM_SPECS = (
-    TermSpec("error_verification", Role.CORRECTNESS, 1,
+    TermSpec("error_verification", Role.CORRECTNESS, Charge.FAILURE, 1,
              "two-universal hash of ceil(log2(1/eps)) bits fails to reveal a wrong key"),
-    TermSpec("smoothing", Role.SECRECY, 2,
-             "smoothing of the min-entropy; the phase-error bound is applied with failure probability "
+    TermSpec("smoothing", Role.SECRECY, Charge.SMOOTHING, 1,
+             "smoothing of the min-entropy; the phase-error bound is evaluated at failure probability "
              "smoothing^2", 0.5),
-    TermSpec("privacy_amplification", Role.SECRECY, 1,
+    TermSpec("privacy_amplification", Role.SECRECY, Charge.HASHING, 1,
              "two-universal hashing is this far from an ideal key (leftover hash lemma)", 0.5),
 )
-_PE_DESCRIPTION = ("parameter estimation: probability that the phase-error bound fails; enters the secrecy only "
-                   "through smoothing = sqrt(this), hence weight 0")
 
 #: The block rule (proofs_notes/protocols/bb84.md, "The block rule"); blocks closed by quotas are refused.
 BLOCK_RULE_ASSUMPTION = (
@@ -390,21 +389,10 @@ def parse_block(data) -> BB84Block:
 # Key length
 # ---------------------------------------------------------------------------------------------------------------
 def block_ledger(eps_sec: float, eps_cor: float, split: dict | None = None) -> Ledger:
-    """Allocate the budget over :data:`TERM_SPECS` and append the (weight-0) parameter-estimation term."""
+    """Allocate the budget over :data:`TERM_SPECS` (the smoothing term also guards the phase-error bound)."""
     led = allocate(eps_sec, eps_cor, TERM_SPECS, split)
-    eps_s = led.epsilon("smoothing")
-    pe = LedgerTerm("parameter_estimation", _pe_failure(eps_s), Role.SECRECY, 0, _PE_DESCRIPTION)
-    return Ledger(led.terms + (pe,))
-
-
-def _pe_failure(eps_s: float) -> float:
-    """eps_s^2 rounded down, so the phase-error bound's failure probability never exceeds eps_s^2."""
-    sq = eps_s * eps_s
-    while Fraction(sq) > Fraction(eps_s) ** 2:
-        sq = math.nextafter(sq, 0.0)
-    if sq <= 0.0:
-        raise InputError("eps_sec", eps_s, "a budget whose smoothing term squared is a positive float (> ~1e-150)")
-    return sq
+    led.failure_probability("smoothing")   # the square must be a positive float (clear error otherwise)
+    return led
 
 
 def phase_errors_upper_exact(n: int, k: int, e: int, eps_pe: float, cache: dict | None = None) -> int:
@@ -466,9 +454,9 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
     ledger = cache.get(lkey)
     if ledger is None:
         ledger = cache[lkey] = block_ledger(block.eps_sec, block.eps_cor, block.epsilon_split)
-    eps_s = ledger.epsilon("smoothing")
-    eps_pa = ledger.epsilon("privacy_amplification")
-    eps_pe = ledger.epsilon("parameter_estimation")
+    eps_s = ledger.smoothing("smoothing")
+    eps_pa = ledger.hashing("privacy_amplification")
+    eps_pe = ledger.failure_probability("smoothing")
     tag = verification_tag_bits(block.eps_cor)
     leak = block.leak_bits()
     n, k, e, c = block.key_bits, block.test_bits, block.test_errors, block.overlap
@@ -787,7 +775,7 @@ class _Objective:
         if n < 1 or k < 1:
             return -1.0 - n
         eps_s, eps_pa = self._eps(share)
-        E = key_errors_upper(n, k, e, _pe_failure(eps_s))
+        E = key_errors_upper(n, k, e, squared_down(eps_s))
         if 2 * E >= n:
             return -1.0 - n
         leak = float(sc.leakage.bits(n, sc.qber))
