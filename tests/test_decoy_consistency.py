@@ -140,3 +140,24 @@ def test_vacuum_detections_without_errors_get_no_key(mu, p):
         res = D.key_length(block)
         assert res.secret_key_length == 0
         assert res.estimates.get("note_block_inconsistent_with_decoy_model") == 1.0
+
+
+def test_longer_key_with_worse_weak_intensity_data_is_flagged():
+    """Proof note section 7a: the example block's key grows by tens of kilobits when one weakest-intensity
+    test detection is removed; the result says so (the length itself is the certified one of the data given).
+    Reference: the re-evaluation of the perturbed block by the same public function."""
+    import json
+    import pathlib
+    from dataclasses import replace as _replace
+    from finitekey.protocols import decoy_bb84 as D
+    data = json.loads((pathlib.Path(__file__).resolve().parents[1] / "examples" / "blocks"
+                       / "decoy_block.json").read_text())
+    b = D.parse_block(data)
+    r = D.key_length(b)
+    td = list(b.test_detections)
+    td[-1] -= 1
+    worse = D.key_length(_replace(b, test_detections=tuple(td)))
+    assert worse.secret_key_length > r.secret_key_length
+    assert r.estimates["note_longer_key_with_worse_data"] == 1.0
+    assert r.estimates["worse_data_key_gain_bits"] >= worse.secret_key_length - r.secret_key_length
+    assert any(a.startswith("flag: worse data") for a in r.assumptions)

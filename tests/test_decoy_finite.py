@@ -67,7 +67,9 @@ def _lim2014_reference(b):
     # random-sampling (Serfling) deviation exp(-2 mu^2 n k^2 / ((n+k)(k+1))) = eps of Tomamichel, Lim, Gisin,
     # Renner, Nat. Commun. 3, 634 (2012), at n = ceil(s1), k = ceil(s1z) key/test bits
     n, k = mpmath.ceil(s1x), mpmath.ceil(s1z)
-    mu_rig = mpmath.sqrt((n + k) * (k + 1) * mpmath.log(21 / es) / (2 * n * k ** 2))
+    # the bound guards the single-photon smoothing (eps_sec/21), so it fails with probability (eps_sec/21)^2,
+    # the same probability that the 2014 gamma carries in its logarithm
+    mu_rig = mpmath.sqrt((n + k) * (k + 1) * mpmath.log((21 / es) ** 2) / (2 * n * k ** 2))
     phi = lam + max(gamma, mu_rig)
     h = -phi * mpmath.log(phi, 2) - (1 - phi) * mpmath.log(1 - phi, 2)
     ell = (s0x + s1x - s1x * h - b.ec_leak_bits - 6 * mpmath.log(21 / es, 2) - mpmath.log(2 / mpmath.mpf(b.eps_cor), 2))
@@ -106,6 +108,12 @@ def test_reference_ledger_spends_eps_sec_over_21_per_event():
         if t.role.value == "secrecy":
             assert t.epsilon == pytest.approx(1e-10 / 21, rel=1e-12)
     assert r.ledger.eps_sec <= 1e-10
+    # the 2014 accounting spends all 21 units: 12 count intervals, 4 for the single-photon smoothing (doubled
+    # by the chain rule, twice in trace distance), 2 + 2 for the chain rules, 1 for hashing
+    assert r.ledger.eps_sec == pytest.approx(1e-10, rel=1e-12)
+    units = {t.name: t.weight for t in r.ledger.terms if t.role.value == "secrecy"}
+    assert units == {"count_estimation": 12, "single_photon_smoothing": 4, "chain_rule": 4,
+                     "privacy_amplification": 1}
     assert r.ledger.eps_cor == pytest.approx(1e-15)
     d = r.to_dict()
     for key in ("protocol", "secret_key_length", "eps_total", "eps_sec", "eps_cor", "ledger", "statistics",

@@ -157,11 +157,14 @@ class DesignProblem:
         n_count = D.count_events(self.k, analysis)
         if split is None:
             eps = np.full(qx.shape, sc.eps_sec / D.REFERENCE_UNITS)
-            eps_c = eps_p = eps_ch = eps_pa = eps
+            eps_c = eps_s = eps_ch = eps_pa = eps
         else:
-            specs = D.term_specs(n_count)
+            specs = D.term_specs(n_count, analysis)
             w = [s.weight for s in specs[:4]]
-            eps_c, eps_p, eps_ch, eps_pa = (sc.eps_sec * split[j] / w[j] for j in range(4))
+            # pinned terms (two intensities: eps_cor for an undetected correction failure) come off first
+            budget = sc.eps_sec - sum(s.weight * sc.eps_cor for s in specs if s.pinned is not None)
+            eps_c, eps_s, eps_ch, eps_pa = (budget * split[j] / w[j] for j in range(4))
+        eps_p = eps_s * eps_s    # the phase-error bound fails with probability at most the smoothing squared
         meth = self.statistics
         kdt, tdt, tet = kd.sum(axis=0), td.sum(axis=0), te.sum(axis=0)
         kl, kh = A.count_interval_float(meth, kd, kdt, eps_c)
@@ -201,7 +204,8 @@ class DesignProblem:
         h = A.binary_entropy_float(np.minimum(phi, 0.5)) + 4.0 * np.maximum(phi - 0.5, 0.0)
         qber = np.clip(ke.sum(axis=0) / kdt, 1e-15, 0.5)
         leak = sc.ec_efficiency * kdt * A.binary_entropy_float(qber)
-        pen = (4 * np.log(1 / eps_ch) + 2 * np.log(1 / eps_pa) + np.log(2 / sc.eps_cor)) / _LN2
+        pen = (D.CHAIN_RULES * np.log(2 / (eps_ch * eps_ch)) + 2 * np.log(1 / (2 * eps_pa))
+               + np.log(2 / sc.eps_cor)) / _LN2
         # s1 < 0 is charged directly (s1 (1 - h) would turn positive when both factors are negative)
         single = np.maximum(s1, 0.0) * (1 - h) + np.minimum(s1, 0.0)
         return s0 + single - leak - pen

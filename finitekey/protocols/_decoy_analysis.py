@@ -287,15 +287,16 @@ def two_intensity_errors(mu, p, lo, hi, exp):
     return tau1 / (k1 - k2) * (exp(k1) / p[0] * hi[0] - exp(k2) / p[1] * lo[1])
 
 
-def sampling_gamma(eps, lam, n_test, n_key, log):
-    """The 2014 sampling term: phase-error excess of n_key bits over the rate lam seen on n_test bits.
+def sampling_gamma(delta, lam, n_test, n_key, log):
+    """The 2014 sampling term (squared): phase-error excess of n_key bits over the rate lam on n_test bits.
 
-    ``gamma = sqrt((c+d)(1-b)b/(c d ln 2) * log2((c+d)/(c d (1-b) b eps^2)))`` with ``c = n_test``,
-    ``d = n_key``, ``b = lam`` (from memory of Lim et al. 2014, their Eq. for gamma(a, b, c, d) with
-    ``a = eps``).
+    ``gamma^2 = (c+d)(1-b)b/(c d ln 2) * log2((c+d)/(c d (1-b) b a^2))`` with ``c = n_test``, ``d = n_key``,
+    ``b = lam`` (Lim et al. 2014, their gamma(a, b, c, d); from memory).  ``delta = a^2`` is passed: the
+    probability at which the phase-error bound is evaluated (the square of the single-photon smoothing
+    parameter ``a``).
     """
     c, d, b = n_test, n_key, lam
-    inner = (c + d) / (c * d * (1 - b) * b * eps * eps)
+    inner = (c + d) / (c * d * (1 - b) * b * delta)
     val = (c + d) * (1 - b) * b / (c * d * LN2) * (log(inner) / LN2)
     return val
 

@@ -10,11 +10,13 @@ intensity in each basis, the analysis bounds
 
 and extracts
 
-.. math:: \\ell = \\Big\\lfloor s_0 + s_1\\,(1 - h(\\phi)) - \\lambda_{EC} - 4\\log_2\\tfrac{1}{\\varepsilon_{ch}}
-          - 2\\log_2\\tfrac{1}{\\varepsilon_{PA}} - \\log_2\\tfrac{2}{\\varepsilon_{cor}}\\Big\\rfloor ,
+.. math:: \\ell = \\Big\\lfloor s_0 + s_1\\,(1 - h(\\phi)) - \\lambda_{EC} - 2\\log_2\\tfrac{2}{\\varepsilon_{ch}^2}
+          - 2\\log_2\\tfrac{1}{2\\varepsilon_{PA}} - \\log_2\\tfrac{2}{\\varepsilon_{cor}}\\Big\\rfloor ,
 
-which with every epsilon equal to ``eps_sec/21`` is the 2014 formula
-``s0 + s1 (1 - h(phi)) - leak - 6 log2(21/eps_sec) - log2(2/eps_cor)``.
+with ``phi`` bounding the single-photon phase-error rate except with probability ``eps_1^2`` (``eps_1`` the
+single-photon smoothing parameter).  With every epsilon equal to ``eps_sec/21`` (12 count intervals, 4 units
+for the single-photon smoothing doubled by the chain rule, 2 + 2 for the chain rules, 1 for hashing) this is
+the 2014 formula ``s0 + s1 (1 - h(phi)) - leak - 6 log2(21/eps_sec) - log2(2/eps_cor)``.
 
 Statistics (``statistics=``):
 
@@ -54,12 +56,12 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 from flint import arb, ctx
 
-from ..budget import Ledger, LedgerTerm, Role, TermSpec, allocate
+from ..budget import Charge, Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
@@ -84,8 +86,9 @@ _PREC = 128
 REFERENCE_UNITS = 21
 
 FORMULA = (r"\ell = \Big\lfloor s_{X,0}^{L} + s_{X,1}^{L}\,\big(1 - h(\phi_X^{U})\big) - \lambda_{EC}"
-           r" - 4\log_2\frac{1}{\varepsilon_{ch}} - 2\log_2\frac{1}{\varepsilon_{PA}}"
-           r" - \log_2\frac{2}{\varepsilon_{cor}}\Big\rfloor")
+           r" - 2\log_2\frac{2}{\varepsilon_{ch}^2} - 2\log_2\frac{1}{2\varepsilon_{PA}}"
+           r" - \log_2\frac{2}{\varepsilon_{cor}}\Big\rfloor,\quad"
+           r" \Pr[\phi_X > \phi_X^{U}] \le \varepsilon_{1}^2")
 
 REFERENCES = (
     "C. C. W. Lim, M. Curty, N. Walenta, F. Xu, H. Zbinden, Phys. Rev. A 89, 022307 (2014)",
@@ -133,7 +136,9 @@ def three_intensity_condition(mu) -> bool:
 # ---------------------------------------------------------------------------------------------------------
 # epsilon accounting
 # ---------------------------------------------------------------------------------------------------------
-SECRECY_TERMS = ("count_estimation", "phase_error_sampling", "chain_rule", "privacy_amplification")
+SECRECY_TERMS = ("count_estimation", "single_photon_smoothing", "chain_rule", "privacy_amplification")
+#: Secrecy term of the two-intensity analysis whose epsilon is eps_cor (not split; see term_specs).
+EC_FAILURE_TERM = "undetected_correction_failure"
 
 
 def count_events(n_intensities: int, analysis: str, statistics: str | None = None) -> int:
@@ -151,39 +156,59 @@ def count_events(n_intensities: int, analysis: str, statistics: str | None = Non
     return 6 * n_intensities  # LP: both sides for every intensity: key detections, test detections, test errors
 
 
-def term_specs(n_count: int) -> tuple:
+#: Appearances of the single-photon smoothing parameter in the final smoothing: the first chain rule
+#: ``H^{a+2b+c}(AB|C) >= H^b(A|BC) + H^c(B|C) - log2(2/a^2)`` puts it in the doubled slot (proof note, section 7).
+SINGLE_PHOTON_APPEARANCES = 2
+#: Two chain rules (single photons | rest, then vacuum | multi-photon), each with its own smoothing parameter.
+CHAIN_RULES = 2
+
+
+def term_specs(n_count: int, analysis: str | None = None) -> tuple:
     """Ledger terms of the decoy analysis; ``n_count`` one-sided count intervals.
 
-    Default shares follow the 2014 per-event split (one unit per event) rescaled to spend all of eps_sec.
+    ``single_photon_smoothing`` is the smoothing parameter of the single-photon min-entropy: the phase-error
+    bound is evaluated at failure probability eps^2 and, doubled by the chain rule, it costs 4 eps.  With two
+    intensities the vacuum bound of the key basis uses the key-basis error counts, known only after error
+    correction; an undetected correction failure (probability <= eps_cor) then breaks that bound, so
+    ``undetected_correction_failure`` charges eps_cor to the secrecy too.
+
+    Default shares follow the 2014 per-unit split (one unit per event or appearance) over the split terms.
     """
-    units = n_count + 1 + 4 + 1
-    return (
-        TermSpec("count_estimation", Role.SECRECY, n_count,
+    units = n_count + 2 * SINGLE_PHOTON_APPEARANCES + 2 * CHAIN_RULES + 1
+    specs = (
+        TermSpec("count_estimation", Role.SECRECY, Charge.FAILURE, n_count,
                  f"{n_count} one-sided intervals on expected detection/error counts per intensity",
                  n_count / units),
-        TermSpec("phase_error_sampling", Role.SECRECY, 1,
-                 "single-photon phase-error rate of the key exceeds its bound from the test-basis sample",
-                 1 / units),
-        TermSpec("chain_rule", Role.SECRECY, 4,
-                 "two chain-rule splits of the smooth min-entropy (vacuum / single / multi-photon), "
-                 "each smoothing counted twice", 4 / units),
-        TermSpec("privacy_amplification", Role.SECRECY, 1, "leftover hash lemma (two-universal hashing)",
-                 1 / units),
-        TermSpec("correctness", Role.CORRECTNESS, 1, "error-verification hash fails to detect a residual error"),
+        TermSpec("single_photon_smoothing", Role.SECRECY, Charge.SMOOTHING, SINGLE_PHOTON_APPEARANCES,
+                 "smoothing of the single-photon min-entropy; the phase-error bound from the test-basis "
+                 "sample is evaluated at failure probability eps^2; doubled by the chain rule",
+                 2 * SINGLE_PHOTON_APPEARANCES / units),
+        TermSpec("chain_rule", Role.SECRECY, Charge.SMOOTHING, CHAIN_RULES,
+                 "smoothing parameters of the two chain-rule splits (single / vacuum / multi-photon)",
+                 2 * CHAIN_RULES / units),
+        TermSpec("privacy_amplification", Role.SECRECY, Charge.HASHING, 1,
+                 "leftover hash lemma (two-universal hashing)", 1 / units),
     )
+    if analysis == "two-intensity":
+        specs += (TermSpec(EC_FAILURE_TERM, Role.SECRECY, Charge.FAILURE, 1,
+                           "error correction fails undetected, so the key-basis error counts behind the "
+                           "vacuum bound are wrong (probability at most eps_cor)", pinned="eps_cor"),)
+    return specs + (TermSpec("correctness", Role.CORRECTNESS, Charge.FAILURE, 1,
+                             "error-verification hash fails to detect a residual error"),)
 
 
 def reference_ledger(eps_sec: float, eps_cor: float, n_count: int) -> Ledger:
-    """The 2014 choice: every secrecy event at eps_sec/21 (the weights add to at most 21)."""
+    """The 2014 choice: every secrecy unit at eps_sec/21 (12 count intervals, 4 for the single-photon
+    smoothing doubled by the chain rule, 2 + 2 for the chain rules, 1 for hashing)."""
     e = math.nextafter(eps_sec / REFERENCE_UNITS, 0.0)
     terms = []
     for s in term_specs(n_count):
         eps = eps_cor if s.role is Role.CORRECTNESS else e
-        terms.append(LedgerTerm(s.name, eps, s.role, s.weight, s.description))
+        terms.append(LedgerTerm(s.name, eps, s.role, s.charge, s.multiplicity, s.description))
     led = Ledger(tuple(terms))
-    if led.eps_sec > eps_sec:
-        raise ComputationError(f"the 2014 accounting needs at most {REFERENCE_UNITS} units; this analysis uses "
-                               f"{sum(t.weight for t in terms if t.role is Role.SECRECY)}")
+    units = sum(t.weight for t in terms if t.role is Role.SECRECY)
+    if units != REFERENCE_UNITS or led.eps_sec > eps_sec:
+        raise ComputationError(f"the 2014 accounting has {REFERENCE_UNITS} units; this analysis uses {units}")
     return led
 
 
@@ -385,10 +410,13 @@ def analysis_kind(mu, analysis: str | None = None) -> str:
 
 
 def block_ledger(block: DecoyBlock, statistics: str, analysis: str) -> Ledger:
+    """The block's ledger: the 2014 reference (hoeffding, three intensities, no split given) or the split."""
     n_count = count_events(len(block.intensities), analysis, statistics)
     if statistics == "hoeffding" and block.epsilon_split is None and analysis == "three-intensity":
         return reference_ledger(block.eps_sec, block.eps_cor, n_count)
-    return allocate(block.eps_sec, block.eps_cor, term_specs(n_count), block.epsilon_split)
+    led = allocate(block.eps_sec, block.eps_cor, term_specs(n_count, analysis), block.epsilon_split)
+    led.failure_probability("single_photon_smoothing")   # its square must be a positive float
+    return led
 
 
 def _intervals(method, counts, eps, prec, kato=None):
@@ -557,6 +585,8 @@ def _vacuum_deviation(method: str, n_detections: int, eps: float) -> arb:
 def _phase_error_hoeffding(s1: arb, s1z: arb, v1: arb, eps_p: float, prec: int):
     """Phase-error rate for ``statistics="hoeffding"``: ``lambda + max(gamma_2014, mu_rigorous)``.
 
+    ``eps_p`` is the failure probability of the bound: the square of the single-photon smoothing parameter.
+
     ``gamma_2014`` is the 2014 sampling term (kept so the reference is reproduced where it is at least as
     conservative); it is not a valid bound on its own (it tends to 0 with the test error rate).
     ``mu_rigorous`` is the random-sampling (Serfling) deviation of ``finitekey.bounds.random_sampling`` at
@@ -582,7 +612,10 @@ def _phase_error_hoeffding(s1: arb, s1z: arb, v1: arb, eps_p: float, prec: int):
 
 
 def _phase_error(method: str, est: dict, eps_p: float, prec: int):
-    """Upper bound on the single-photon phase-error rate of the key, as an exact arb ball (or 1/2 cap)."""
+    """Upper bound on the single-photon phase-error rate of the key, as an exact arb ball (or 1/2 cap).
+
+    ``eps_p``: failure probability of the bound, the square of the single-photon smoothing parameter.
+    """
     s1, s1z, v1 = est["s1"], est["s1z"], est["v1"]
     if not (s1 > 0 and s1z > 0):
         return arb(0.5), {}
@@ -630,6 +663,50 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     .. [1] C. C. W. Lim et al., Phys. Rev. A 89, 022307 (2014).
     .. [2] D. Rusca et al., Appl. Phys. Lett. 112, 171104 (2018).
     """
+    result = _key_length(block, statistics, prec, analysis)
+    if result.secret_key_length > 0:
+        result = _flag_worse_data(block, statistics, prec, analysis, result)
+    return result
+
+
+#: Perturbations that make a block's data worse (proof note, section 7a): (basis table, kind, change).
+_WORSE = (("test", "errors", +1), ("test", "detections", -1), ("key", "detections", -1))
+
+
+def _flag_worse_data(block, statistics, prec, analysis, result):
+    """Flag a block whose key grows when its weakest-intensity data get worse (one more test error, one
+    test or key detection fewer).  Each bound stays valid, so this is not a leak; it is reported because a
+    counting error upstream would inflate such a key (proof note, section 7a)."""
+    w = len(block.intensities) - 1
+    longer = []
+    for basis, kind, delta in _WORSE:
+        counts = list(getattr(block, f"{basis}_{kind}"))
+        errors = list(getattr(block, f"{basis}_errors"))
+        new = counts[w] + delta
+        if new < 0 or (kind == "detections" and new < errors[w]) or (kind == "errors"
+                                                                     and new > getattr(block, f"{basis}_detections")[w]):
+            continue
+        counts[w] = new
+        changed = {f"{basis}_{kind}": tuple(counts)}
+        if basis == "key" and kind == "detections" and block.ec_leak_bits > sum(counts):
+            continue
+        other = _key_length(replace(block, **changed), statistics, prec, analysis)
+        if other.secret_key_length > result.secret_key_length:
+            longer.append((other.secret_key_length - result.secret_key_length,
+                           f"{basis}_basis.{kind}[{w}] {'+' if delta > 0 else '-'}1 gives "
+                           f"{other.secret_key_length} bits"))
+    if not longer:
+        return result
+    gain = max(g for g, _ in longer)
+    longer = [t for _, t in longer]
+    note = ("flag: worse data at the weakest intensity give a longer key (" + "; ".join(longer) + "); each bound "
+            "is valid, but check the counts: a counting error upstream would inflate this key")
+    return replace(result, assumptions=result.assumptions + (note,),
+                   estimates={**result.estimates, "note_longer_key_with_worse_data": 1.0,
+                              "worse_data_key_gain_bits": float(gain)})
+
+
+def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResult:
     method = _check_statistics(statistics)
     if method == "exact":
         _check_exact_range(block)
@@ -637,10 +714,10 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     if method == "kato":
         _check_kato(block, analysis)
     ledger = block_ledger(block, method, analysis)
-    eps_c = ledger.epsilon("count_estimation")
-    eps_p = ledger.epsilon("phase_error_sampling")
-    eps_ch = ledger.epsilon("chain_rule")
-    eps_pa = ledger.epsilon("privacy_amplification")
+    eps_c = ledger.failure_probability("count_estimation")
+    eps_p = ledger.failure_probability("single_photon_smoothing")    # eps^2: the smoothing's event
+    eps_ch = ledger.smoothing("chain_rule")
+    eps_pa = ledger.hashing("privacy_amplification")
     est = _estimates_certified(block, method, analysis, eps_c, prec)
     est, violations = _physical_check(block, est)
     if violations:
@@ -651,8 +728,9 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
         s1 = A.clip0(est["s1"])
         h = A.binary_entropy_arb_upper(phi)
         ln2 = arb(2).log()
-        chain = 4 * (1 / arb(eps_ch)).log() / ln2
-        pa = 2 * (1 / arb(eps_pa)).log() / ln2
+        # each chain rule costs log2(2/eps_ch^2) bits; the leftover hash lemma 2 log2(1/(2 eps_PA))
+        chain = CHAIN_RULES * (2 / (arb(eps_ch) * arb(eps_ch))).log() / ln2
+        pa = 2 * (1 / (2 * arb(eps_pa))).log() / ln2
         tag = (2 / arb(block.eps_cor)).log() / ln2
         leak = arb(block.ec_leak_bits)
         single = s1 * (1 - h)
