@@ -238,7 +238,11 @@ def test_rounds_field_is_checked_and_echoed():
         assert info.value.field == "rounds"
 
 
-@pytest.mark.parametrize("value", ["quota", "detections", 1, None])
+def test_null_closed_by_is_the_default():
+    assert bb84.parse_block(dict(BLOCK, closed_by=None)) == bb84.parse_block(BLOCK)
+
+
+@pytest.mark.parametrize("value", ["quota", "detections", "Rounds", 1, ["quota"]])
 def test_quota_and_unknown_closures_are_refused(value):
     with pytest.raises(InputError) as info:
         bb84.parse_block(dict(BLOCK, closed_by=value))

@@ -40,7 +40,7 @@ class BlockClosure(enum.Enum):
 
 
 def parse_closure(data: dict, unit: str = "rounds") -> BlockClosure:
-    """Read the block field ``closed_by`` (default ``"rounds"``); refuse ``"quota"``.
+    """Read the block field ``closed_by`` (default ``"rounds"`` when absent or null); refuse ``"quota"``.
 
     Parameters
     ----------
@@ -59,7 +59,9 @@ def parse_closure(data: dict, unit: str = "rounds") -> BlockClosure:
     InputError
         For ``"quota"`` (with the reason and what to do instead) and for any other value.
     """
-    value = data.get("closed_by", BlockClosure.ROUNDS.value)
+    value = data.get("closed_by")
+    if value is None:  # absent or null: not declared, the default (stated in every result's assumptions)
+        return BlockClosure.ROUNDS
     if value == BlockClosure.ROUNDS.value:
         return BlockClosure.ROUNDS
     if value == BlockClosure.QUOTA.value:
