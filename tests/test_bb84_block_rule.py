@@ -260,6 +260,8 @@ def test_decoy_blocks_declare_closure_too():
     res = decoy_bb84.DECOY_BB84.key_length(block)
     assert decoy_bb84.BLOCK_RULE_ASSUMPTION in res.assumptions
     assert "pulses" in decoy_bb84.BLOCK_RULE_ASSUMPTION
+    design = decoy_bb84.DECOY_BB84.design(decoy_bb84.DECOY_BB84.default_scenario())
+    assert decoy_bb84.BLOCK_RULE_ASSUMPTION in design.expected.assumptions   # so reports carry it
     with pytest.raises(InputError) as info:
         decoy_bb84.DECOY_BB84.parse_block(dict(DECOY, closed_by="quota"))
     assert info.value.field == "closed_by" and "pulses" in info.value.allowed
