@@ -136,6 +136,10 @@ def test_blocksize_positive_key():
     res = proto.blocksize(_scenario(L=50.0), BlockTarget.parse("positive"), "hoeffding")
     assert res.size_kind == "pulses"
     assert res.design.expected.secret_key_length > 0
+    # the design shown is the one at the whole number of pulses reported (it used to be at 10**x, x the
+    # bisection's end, while the size was rounded up)
+    assert res.design.scenario["block"]["pulses"] == res.size == res.design.expected_counts["pulses"]
+    assert res.status.key
     smaller = DD.design(_scenario(L=50.0, N=int(res.size / 1.05)), "hoeffding")  # pulses are a count
     assert smaller.expected.secret_key_length == 0
 

@@ -33,7 +33,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import optimize as _opt
 
-from ..errors import InputError
+from ..errors import ComputationError, InputError
 from ..protocols import _decoy_analysis as A
 from ..protocols import decoy_bb84 as D
 from ..protocols._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason,
@@ -560,5 +560,12 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
             hi, res_hi, th_hi = mid, res, th
         else:
             lo = mid
+    # the size reported is a whole number of pulses, and the design shown (and its echo) is the one at it
     N = int(math.ceil(10 ** hi))
-    return BlockSizeResult(target=target, size=N, size_kind="pulses", design=res_hi)
+    for _ in range(5):
+        ok, res, th = meets(N, th_hi)
+        if ok:
+            return BlockSizeResult(target=target, size=N, size_kind="pulses", design=res)
+        N = int(math.ceil(N * 1.001))
+    raise ComputationError(f"target {target} met at {10 ** hi:.6g} pulses but not at the whole numbers of "
+                           "pulses just above it")
