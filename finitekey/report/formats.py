@@ -1,15 +1,23 @@
-"""Sweep tables as CSV, JSON, Markdown and LaTeX text, each carrying its provenance.
+"""Sweep tables as CSV, JSON, Markdown, LaTeX and plain text, each carrying its provenance and the caution.
 
-* CSV: ``#`` comment lines with the provenance and the caution, then a header
-  row and one row per grid point; floats at full precision (``repr``), missing
-  values empty.  Read it with ``csv.reader`` after dropping the ``#`` lines
-  (``pandas.read_csv(..., comment="#")`` does this).
-* JSON: one object with ``provenance``, ``columns`` and ``rows``; every row
-  carries the full design result including its epsilon ledger.  Non-finite
-  floats are refused.
-* Markdown: a pipe table with 4 significant digits, provenance and caution below.
-* LaTeX: a ``tabular`` fragment (no packages needed beyond LaTeX itself) with
-  ``%`` provenance comments; numbers in math mode as ``m\\times10^{e}``.
+Numbers in the human formats (md, tex, text, and the HTML report) all come
+from one formatter, :mod:`finitekey.report.numbers`: one notation per column,
+significant digits per quantity, grouped digits for counts.  Columns are chosen
+with :func:`finitekey.report.tables.table_view` (``--columns``, ``--pivot``).
+
+* CSV: plain RFC 4180 -- one header row of column keys, then one row per grid
+  point, nothing else, so spreadsheet programs and ``pandas.read_csv`` read it
+  with no options.  Floats are exact (``repr``, see :func:`numbers.csv_number`),
+  lists ``a;b;c``, missing values empty.  The provenance and the caution go to
+  a sidecar file ``NAME.csv.meta.json`` (:func:`csv_sidecar`) written with it.
+* JSON: one object with ``provenance``, ``caution``, ``columns`` and ``rows``;
+  every row carries the full design result including its epsilon ledger.
+  Non-finite floats are refused.
+* Markdown: a pipe table, provenance in HTML comments and the caution below.
+* LaTeX: booktabs rules and siunitx ``S`` columns; a wide table is set in a
+  ``landscape`` page (pdflscape) and a long one as a ``longtable``, so that the
+  default columns never make an overfull box (see :func:`to_latex`).
+* text: aligned columns for a terminal.
 
 No clock time is written, so the same input gives byte-identical output.
 
@@ -17,58 +25,57 @@ References
 ----------
 .. [1] Y. Shafranovich, "Common Format and MIME Type for Comma-Separated Values
    (CSV) Files", RFC 4180 (2005).
+.. [2] S. Fear, "Publication quality tables in LaTeX" (booktabs manual), CTAN (2020).
 """
 
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 import json
-import math
+import re
 
 from ..cautions import CAUTION
+from .numbers import Number, csv_number, format_number
+from .tables import TableView, table_view
 
 __all__ = [
     "EXTENSIONS",
     "FORMATS",
+    "LATEX_PACKAGES",
+    "csv_sidecar",
     "format_for_path",
     "json_text",
     "latex_escape",
     "latex_number",
     "render_table",
     "short_number",
+    "sidecar_path",
     "status_text",
     "to_csv",
     "to_json",
     "to_latex",
     "to_markdown",
+    "to_text",
 ]
 
-FORMATS = ("csv", "json", "md", "tex")
+FORMATS = ("csv", "json", "md", "tex", "text")
+
+#: Packages a LaTeX table from :func:`to_latex` may need (the fragment's first comment names those it uses).
+LATEX_PACKAGES = ("booktabs", "siunitx", "longtable", "pdflscape")
 
 #: File-name extensions that name each table format (for -o without --format).
-EXTENSIONS = {"csv": (".csv",), "json": (".json",), "md": (".md", ".markdown"), "tex": (".tex",)}
+EXTENSIONS = {"csv": (".csv",), "json": (".json",), "md": (".md", ".markdown"), "tex": (".tex",), "text": (".txt",)}
 
 
 def short_number(x, digits: int = 4) -> str:
-    """Human-readable cell: ints as is, floats to ``digits`` significant digits, None as an en dash."""
+    """One value alone, for text: the house formatter (:func:`numbers.format_number`) with kind ``real``."""
     if x is None:
         return "–"
-    if isinstance(x, bool):
-        return str(x).lower()
-    if isinstance(x, int):
-        return str(x)
-    if isinstance(x, float):
-        if x == 0:
-            return "0"
-        if not math.isfinite(x):  # pragma: no cover - the sweep never stores these
-            return str(x)
-        if abs(x) >= 1e6 or abs(x) < 1e-3:
-            return f"{x:.{digits - 1}e}"
-        return f"{x:.{digits}g}"
     if isinstance(x, list):
         return ", ".join(short_number(v, digits) for v in x)
-    return str(x)
+    return format_number(x, "real", "text")
 
 
 def status_text(status: dict | None) -> str | None:
@@ -76,18 +83,6 @@ def status_text(status: dict | None) -> str | None:
     if not status:
         return None
     return "key" if status.get("key") else f"no key: {status.get('reason_text') or status.get('reason')}"
-
-
-def _csv_cell(x) -> str:
-    if x is None:
-        return ""
-    if isinstance(x, bool):
-        return str(x).lower()
-    if isinstance(x, float):
-        return repr(x)
-    if isinstance(x, list):
-        return ";".join(_csv_cell(v) for v in x)
-    return str(x)
 
 
 def _provenance_lines(table) -> list:
@@ -101,20 +96,51 @@ def _provenance_lines(table) -> list:
     return lines
 
 
-def _header(key: str, header: str, unit: str) -> str:
+def _header(header: str, unit: str) -> str:
     return f"{header} [{unit}]" if unit else header
 
 
-def to_csv(table) -> str:
+def to_csv(table, columns=None, pivot=None) -> str:
+    """Plain CSV (header row + data rows, nothing else); default: every column.
+
+    The provenance and the caution are not in this text: write
+    :func:`csv_sidecar` beside it.
+    """
+    view = table_view(table, columns, pivot, human=False)
     buf = io.StringIO()
-    for line in _provenance_lines(table):
-        buf.write(f"# {line}\n")
-    buf.write(f"# {CAUTION}\n")
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow([k for k, _, _ in table.columns()])
-    for cells in table.flat_rows():
-        w.writerow([_csv_cell(c) for c in cells])
+    w.writerow([c.key if view.pivot is None or i == 0 else _pivot_csv_key(view, i)
+                for i, c in enumerate(view.columns)])
+    for cells in view.rows:
+        w.writerow([csv_number(v, c.kind) for v, c in zip(cells, view.columns)])
     return buf.getvalue()
+
+
+def _pivot_csv_key(view: TableView, i: int) -> str:
+    return view.columns[i].key
+
+
+def sidecar_path(csv_path) -> str:
+    """Where the provenance of a CSV file goes: ``NAME.csv`` -> ``NAME.csv.meta.json``."""
+    return f"{csv_path}.meta.json"
+
+
+def csv_sidecar(table, csv_text: str, csv_name: str = "", columns=None, pivot=None) -> str:
+    """The JSON sidecar of a CSV table: caution, provenance, columns with units, and the CSV's SHA-256."""
+    view = table_view(table, columns, pivot, human=False)
+    d = {"caution": CAUTION,
+         "provenance": dict(table.provenance),
+         "csv": csv_name,
+         "csv_sha256": hashlib.sha256(csv_text.encode("utf-8")).hexdigest(),
+         "protocol": table.protocol, "mode": table.mode, "statistics": table.statistics, "target": table.target,
+         "vary": [{"field": a.field, "values": list(a.values), "text": a.text} for a in table.axes],
+         "columns": [{"key": c.key, "header": c.header, "unit": c.unit, "kind": c.kind} for c in view.columns],
+         "notes": list(view.notes),
+         "numbers": "floats are Python repr (shortest text that reads back as the same double); epsilon columns "
+                    "are rounded up to 15 significant digits; lists are a;b;c; empty = no value"}
+    if view.pivot is not None:
+        d["pivot"] = {k: view.pivot[k] for k in ("row_field", "column_field", "quantity")}
+    return json_text(d) + "\n"
 
 
 def _json_default(o):
@@ -137,8 +163,17 @@ def json_text(obj) -> str:
     return json.dumps(obj, indent=2, default=_json_default, allow_nan=False)
 
 
-def to_json(table) -> str:
+def to_json(table, columns=None, pivot=None) -> str:
+    """JSON: provenance, caution, the shown columns and every row in full (ledger included); a pivot adds its grid."""
+    view = table_view(table, columns, pivot, human=False)
     d = table.to_dict()
+    d["columns"] = [{"key": c.key, "header": c.header, "unit": c.unit, "kind": c.kind} for c in view.columns]
+    if view.pivot is not None:
+        d["pivot"] = {k: view.pivot[k] for k in ("row_field", "column_field", "quantity")}
+        axes = {a.field: a for a in table.axes}
+        d["pivot"]["row_values"] = list(axes[view.pivot["row_field"]].values)
+        d["pivot"]["column_values"] = list(axes[view.pivot["column_field"]].values)
+        d["pivot"]["cells"] = [list(r[1:]) for r in view.rows]
     d["caution"] = CAUTION
     return json_text(d) + "\n"
 
@@ -147,22 +182,59 @@ def _md_escape(text: str) -> str:
     return str(text).replace("|", "\\|")
 
 
-def to_markdown(table) -> str:
-    cols = table.columns()
-    lines = ["| " + " | ".join(_md_escape(_header(*c)) for c in cols) + " |",
-             "|" + "|".join("---:" if not _textual(table, i) else ":---" for i in range(len(cols))) + "|"]
-    for cells in table.flat_rows():
-        lines.append("| " + " | ".join(_md_escape(short_number(c)) for c in cells) + " |")
+def _is_text_column(view: TableView, i: int) -> bool:
+    vals = [r[i] for r in view.rows if r[i] is not None]
+    return bool(vals) and all(isinstance(v, str) for v in vals)
+
+
+def to_markdown(table, columns=None, pivot=None) -> str:
+    """A Markdown pipe table (default columns), provenance in HTML comments and the caution below."""
+    view = table_view(table, columns, pivot)
+    heads = view.headers("md")
+    if view.pivot is not None:
+        heads[0] = view.corner
+        lines = [f"**{_md_escape(view.caption)}**", ""]
+    else:
+        lines = []
+        heads = [_header(h, c.unit) for h, c in zip(heads, view.columns)]
+    lines += ["| " + " | ".join(_md_escape(h) for h in heads) + " |",
+              "|" + "|".join(":---" if _is_text_column(view, i) else "---:" for i in range(len(heads))) + "|"]
+    for cells in view.spelled("md"):
+        lines.append("| " + " | ".join(_md_escape(c) for c in cells) + " |")
     lines.append("")
+    for note in view.notes:
+        lines.append(f"- {_md_escape(note)}")
+    if view.notes:
+        lines.append("")
     lines += [f"<!-- {line} -->" for line in _provenance_lines(table)]
     lines.append("")
     lines.append(f"*{CAUTION}*")
     return "\n".join(lines) + "\n"
 
 
-def _textual(table, i: int) -> bool:
-    vals = [cells[i] for cells in table.flat_rows() if cells[i] is not None]
-    return bool(vals) and all(isinstance(v, str) for v in vals)
+def to_text(table, columns=None, pivot=None) -> str:
+    """Aligned plain-text columns (default columns), numbers right-aligned, caution and provenance below."""
+    view = table_view(table, columns, pivot)
+    heads = view.headers("text")
+    if view.pivot is not None:
+        heads[0] = view.corner
+    else:
+        heads = [_header(h, c.unit) for h, c in zip(heads, view.columns)]
+    body = view.spelled("text")
+    widths = [max([len(h)] + [len(r[i]) for r in body]) for i, h in enumerate(heads)]
+    text_col = [_is_text_column(view, i) for i in range(len(heads))]
+    lines = []
+    if view.pivot is not None:
+        lines.append(view.caption)
+    lines.append("  ".join(h.ljust(w) if t else h.rjust(w) for h, w, t in zip(heads, widths, text_col)).rstrip())
+    lines.append("  ".join("-" * w for w in widths))
+    for r in body:
+        lines.append("  ".join(c.ljust(w) if t else c.rjust(w) for c, w, t in zip(r, widths, text_col)).rstrip())
+    lines += view.notes
+    lines.append("")
+    lines += _provenance_lines(table)
+    lines.append(CAUTION)
+    return "\n".join(lines) + "\n"
 
 
 _TEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
@@ -170,7 +242,8 @@ _TEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "
                 # characters plain pdflatex cannot typeset from UTF-8 text
                 "−": "-", "×": r"\ensuremath{\times}", "≤": r"\ensuremath{\le}", "≥": r"\ensuremath{\ge}",
                 "ε": r"\ensuremath{\varepsilon}", "η": r"\ensuremath{\eta}", "μ": r"\ensuremath{\mu}",
-                "µ": r"\ensuremath{\mu}", "’": "'", "“": "``", "”": "''", "·": r"\ensuremath{\cdot}"}
+                "µ": r"\ensuremath{\mu}", "’": "'", "“": "``", "”": "''", "·": r"\ensuremath{\cdot}",
+                "\u202f": r"\,"}
 
 
 def latex_escape(text) -> str:
@@ -178,63 +251,242 @@ def latex_escape(text) -> str:
     return "".join(_TEX_SPECIAL.get(ch, ch) for ch in str(text))
 
 
-def latex_number(x) -> str:
-    """A cell for LaTeX: ``$1.234\\times10^{-5}$`` for floats, plain ints, escaped text, ``--`` for None."""
+def latex_number(x, kind: str = "real") -> str:
+    r"""One value for LaTeX outside an ``S`` column: ``\num{1.23e-5}`` (siunitx), escaped text, ``--`` for None."""
     if x is None:
         return "--"
     if isinstance(x, bool):
         return str(x).lower()
-    if isinstance(x, int):
-        return str(x)
-    if isinstance(x, float):
-        s = short_number(x)
-        if "e" in s:
-            m, e = s.split("e")
-            return f"${m}\\times10^{{{int(e)}}}$"
-        return f"${s}$"
-    if isinstance(x, list):
-        return "; ".join(latex_number(v) for v in x)
+    if isinstance(x, (list, tuple)):
+        return "; ".join(latex_number(v, kind) for v in x)
+    if isinstance(x, (int, float)):
+        return r"\num{" + format_number(x, kind, "tex") + "}"
     return latex_escape(x)
 
 
-def to_latex(table, caption: str | None = None) -> str:
-    cols = table.columns()
-    lines = [f"% {line}" for line in _provenance_lines(table)]
-    lines.append(f"% {CAUTION}")
-    lines.append(r"\begin{table}[htbp]")
-    lines.append(r"\centering")
-    lines.append(r"\small")
-    lines.append(r"\begin{tabular}{" + "".join("l" if _textual(table, i) else "r" for i in range(len(cols))) + "}")
-    lines.append(r"\hline")
-    lines.append(" & ".join(latex_escape(h) + (f" [{latex_escape(u)}]" if u else "") for _, h, u in cols)
-                 + r" \\")
-    lines.append(r"\hline")
-    for cells in table.flat_rows():
-        lines.append(" & ".join(latex_number(c) for c in cells) + r" \\")
-    lines.append(r"\hline")
-    lines.append(r"\end{tabular}")
-    cap = caption or f"{table.protocol}: {table.mode} sweep over " + (", ".join(table.fields) or "one point")
-    lines.append(r"\caption{" + latex_escape(cap) + "}")
-    lines.append(r"\end{table}")
-    return "\n".join(lines) + "\n"
+#: Sizes of LaTeX's article class (10pt base): command, digit width, baseline skip, in pt.  Digit widths of
+#: Computer Modern at 9, 8 and 7 pt measured with pdflatex (a tabular of digits in an \hbox, \the\wd).
+_SIZES = ((r"\small", 4.6, 11.0), (r"\footnotesize", 4.25, 9.5), (r"\scriptsize", 3.99, 8.0))
+#: Text block of LaTeX's article class at 10pt (letter or A4, no geometry): 345 pt wide, 550 pt high; the
+#: landscape page of pdflscape swaps them.  The smallest common page is the budget (common practice, no source).
+_PORTRAIT = (345.0, 550.0)
+_LANDSCAPE = (550.0, 345.0)
+_HEADER_WRAP = 11
 
 
-def render_table(table, fmt: str) -> str:
-    """The table in format ``fmt`` (one of :data:`FORMATS`)."""
+def _wrap_header(text: str) -> list:
+    """Split a header into lines of about 11 characters at spaces and after dots and underscores."""
+    words = []
+    for w in text.split(" "):
+        parts = re.split(r"(?<=[._])", w)
+        words += [p for p in parts if p]
+    lines, cur = [], ""
+    for w in words:
+        glue = "" if cur.endswith((".", "_")) or not cur else " "
+        if cur and len(cur) + len(glue) + len(w) > _HEADER_WRAP:
+            lines.append(cur)
+            cur = w
+        else:
+            cur = cur + glue + w
+    if cur:
+        lines.append(cur)
+    return lines or [""]
+
+
+def _tex_cell_chars(cell) -> float:
+    if cell is None:
+        return 2.0
+    if isinstance(cell, list):  # stacked one element per line
+        return max([_tex_cell_chars(c) for c in cell] + [0.0])
+    if isinstance(cell, Number):
+        n = len(cell.digits)
+        if cell.group:
+            n += 0.35 * ((len(cell.digits.lstrip("-")) - 1) // 3)
+        if cell.exponent is not None:  # "×10^e" measured at about 4.6 + 0.85 per exponent character digit widths
+            n += 4.6 + 0.85 * len(str(cell.exponent))
+        return n
+    return 0.95 * len(str(cell))  # text: measured about 0.9-0.96 digit widths per character
+
+
+def _table_format(cells) -> str | None:
+    nums = [c for c in cells if isinstance(c, Number)]
+    if not nums or any(c is not None and not isinstance(c, Number) for c in cells):
+        return None
+    neg = any(c.digits.startswith("-") for c in nums)
+    ints = max(len(c.digits.lstrip("-").partition(".")[0]) for c in nums)
+    decs = max(len(c.digits.partition(".")[2]) for c in nums)
+    fmt = ("-" if neg else "") + f"{ints}.{decs}"
+    exps = [c.exponent for c in nums if c.exponent is not None]
+    if exps:
+        fmt += "e" + ("-" if any(e < 0 for e in exps) else "") + str(max(len(str(abs(e))) for e in exps))
+    return fmt
+
+
+def _fit(widths_chars, nlines: int, header_lines: int):
+    """The first layout that fits: (size command, tabcolsep pt, landscape, longtable), or None."""
+    ncol = len(widths_chars)
+    for landscape, (pw, ph) in ((False, _PORTRAIT), (True, _LANDSCAPE)):
+        options = [(s, 6.0 if s[0] == r"\small" else 4.0) for s in _SIZES] + [(_SIZES[-1], 2.0)]
+        for (cmd, digit, skip), sep in options:
+            width = sum(w * digit for w in widths_chars) + 2 * sep * ncol
+            if width <= 0.9 * pw:  # 10 % margin for the estimate (measured within 2 % on sweep tables)
+                height = (nlines + header_lines) * skip + 50.0
+                return cmd, sep, landscape, landscape or height > 0.9 * ph
+    return None
+
+
+def _column_groups(widths, keep: int, nlines: int, nhead: int) -> list:
+    """Column index groups, each fitting a page: the first ``keep`` columns repeated in every group."""
+    groups, cur = [], []
+    for i in range(keep, len(widths)):
+        trial = cur + [i]
+        if cur and _fit([widths[j] for j in list(range(keep)) + trial], nlines, nhead) is None:
+            groups.append(cur)
+            trial = [i]
+        cur = trial
+    if cur or not groups:
+        groups.append(cur)
+    return [list(range(keep)) + g for g in groups]
+
+
+def to_latex(table, caption: str | None = None, columns=None, pivot=None, label: str | None = None) -> str:
+    r"""A LaTeX table: booktabs rules, siunitx ``S`` columns, landscape and/or longtable when needed.
+
+    The layout is chosen from an estimate of the table's width and height
+    against the text block of the ``article`` class at 10 pt (345 x 550 pt):
+    portrait at ``\small``, ``\footnotesize`` or ``\scriptsize`` if it fits,
+    else a ``landscape`` page (pdflscape) as a ``longtable``.  A table too
+    wide even for a landscape page is split into several tables of columns,
+    each repeating the varied fields (or the pivot's row field), so no line
+    is overfull.  The third-last comment line names the packages it needs.
+    """
+    view = table_view(table, columns, pivot)
+    fcells = view.formatted()
+    heads = view.headers("tex")
+    if view.pivot is not None:
+        heads[0] = view.pivot["row_field"]
+    head_lines = []
+    for h, c in zip(heads, view.columns):
+        lines = _wrap_header(h)
+        if c.unit and view.pivot is None:
+            lines.append(f"[{c.unit}]")
+        head_lines.append(lines)
+    ncol = len(view.columns)
+    widths = []
+    specs = []
+    for i in range(ncol):
+        col = [r[i] for r in fcells]
+        hw = max(len(x) for x in head_lines[i]) * 0.95
+        cw = max([_tex_cell_chars(c) for c in col] + [0.0])
+        widths.append(max(hw, cw))
+        tf = _table_format(col)
+        specs.append(f"S[table-format={tf}]" if tf else "l")
+    nhead = max(len(x) for x in head_lines) + (2 if view.pivot is not None else 0)
+    nlines = sum(max([len(c) if isinstance(c, list) else 1 for c in r] + [1]) for r in fcells)
+    if view.pivot is not None:
+        keep = 1
+    else:
+        fields = set(table.fields)
+        keep = 0
+        while keep < ncol and view.columns[keep].key in fields:
+            keep += 1
+    groups = [list(range(ncol))] if _fit(widths, nlines, nhead) is not None else \
+        _column_groups(widths, keep, nlines, nhead)
+    layouts = [_fit([widths[j] for j in g], nlines, nhead) or (_SIZES[-1][0], 2.0, True, True) for g in groups]
+    longtable = any(lay[3] for lay in layouts)
+    landscape = any(lay[2] for lay in layouts)
+    packages = ["booktabs", "siunitx"] + (["longtable"] if longtable else []) + (["pdflscape"] if landscape else [])
+
+    def head_cell(lines, spec):
+        inner = r"\\".join(latex_escape(x).replace("[", "{[}").replace("]", "{]}") for x in lines)
+        text = inner if len(lines) == 1 else r"\begin{tabular}[b]{@{}c@{}}" + inner + r"\end{tabular}"
+        return "{" + text + "}" if spec.startswith("S") else text
+
+    def body_cell(c, spec):
+        if spec.startswith("S"):
+            return "{--}" if c is None else format_cell_tex(c)
+        if c is None:
+            return "--"
+        if isinstance(c, list):  # one element per line keeps a list column narrow
+            items = [r"\num{" + format_cell_tex(x) + "}" if isinstance(x, Number) else latex_escape(x) for x in c]
+            if len(items) > 1:
+                return r"\begin{tabular}[t]{@{}l@{}}" + r"\\".join(items) + r"\end{tabular}"
+            return "".join(items)
+        if isinstance(c, Number):
+            return r"\num{" + format_cell_tex(c) + "}"
+        return latex_escape(c)
+
+    out = [f"% {line}" for line in _provenance_lines(table)]
+    out.append(f"% {CAUTION}")
+    out.append("% needs \\usepackage{" + ",".join(packages) + "}")
+    if len(groups) > 1:
+        out.append(f"% too wide for one page: split into {len(groups)} tables of columns, each repeating the "
+                   "first column(s)")
+    cap = caption or view.caption
+    for part, (g, (size, sep, land, longt)) in enumerate(zip(groups, layouts), start=1):
+        gspecs = [specs[j] for j in g]
+        n = len(g)
+        header_rows = []
+        if view.pivot is not None and n > 1:
+            q = view.pivot["header"] + (f" [{view.pivot['unit']}]" if view.pivot["unit"] else "")
+            header_rows.append(r" & \multicolumn{" + str(n - 1) + "}{c}{" + latex_escape(q) + " at "
+                               + latex_escape(view.pivot["column_field"]) + r" =} \\")
+            header_rows.append(r"\cmidrule(l){2-" + str(n) + "}")
+        header_rows.append(" & ".join(head_cell(head_lines[j], specs[j]) for j in g) + r" \\")
+        body = [" & ".join(body_cell(r[j], specs[j]) for j in g) + r" \\" for r in fcells]
+        pcap = cap + (f" (part {part} of {len(groups)})" if len(groups) > 1 else "")
+        lab = (label + (f"-{part}" if len(groups) > 1 else "")) if label else None
+        cap_tex = r"\caption{" + latex_escape(pcap) + "}" + (r"\label{" + lab + "}" if lab else "")
+        notes = [r"\par\smallskip{\footnotesize\raggedright " + latex_escape(x) + r"\par}"
+                 for x in (view.notes if part == len(groups) else ())]
+        # set inside the float: LaTeX resets the font size at the start of every float
+        setup = [r"\sisetup{group-digits=integer,group-minimum-digits=5,exponent-product=\times,round-mode=none}",
+                 size, r"\setlength{\tabcolsep}{" + f"{sep:g}pt" + "}"]
+        out.append(r"\begingroup")
+        colspec = "".join(gspecs)
+        if longt:
+            out += setup
+            if land:
+                out.append(r"\begin{landscape}")
+            out += [r"\begin{longtable}{" + colspec + "}", cap_tex + r" \\", r"\toprule"] + header_rows
+            out += [r"\midrule", r"\endfirsthead",
+                    r"\multicolumn{" + str(n) + r"}{l}{\emph{(continued)}} \\", r"\toprule"] + header_rows
+            out += [r"\midrule", r"\endhead", r"\bottomrule", r"\endlastfoot"] + body + [r"\end{longtable}"]
+            out += notes
+            if land:
+                out.append(r"\end{landscape}")
+        else:
+            out += [r"\begin{table}[htbp]", r"\centering"] + setup
+            out += [r"\begin{tabular}{" + colspec + "}", r"\toprule"] + header_rows + [r"\midrule"] + body
+            out += [r"\bottomrule", r"\end{tabular}"] + notes + [cap_tex, r"\end{table}"]
+        out.append(r"\endgroup")
+    return "\n".join(out) + "\n"
+
+
+def format_cell_tex(cell) -> str:
+    """A formatted :class:`Number` in siunitx input syntax (``1.23e-5``)."""
+    from .numbers import spell
+    return spell(cell, "tex")
+
+
+def render_table(table, fmt: str, columns=None, pivot=None) -> str:
+    """The table in format ``fmt`` (one of :data:`FORMATS`), with ``--columns`` / ``--pivot`` applied."""
     from ..errors import InputError
     if fmt == "csv":
-        return to_csv(table)
+        return to_csv(table, columns, pivot)
     if fmt == "json":
-        return to_json(table)
+        return to_json(table, columns, pivot)
     if fmt == "md":
-        return to_markdown(table)
+        return to_markdown(table, columns, pivot)
     if fmt == "tex":
-        return to_latex(table)
+        return to_latex(table, columns=columns, pivot=pivot)
+    if fmt == "text":
+        return to_text(table, columns, pivot)
     raise InputError("--format", fmt, "one of: " + ", ".join(FORMATS))
 
 
 def format_for_path(path: str, default: str = "md") -> str:
-    """Guess the format from an output file's extension (``.csv``, ``.json``, ``.md``, ``.tex``)."""
+    """Guess the format from an output file's extension (``.csv``, ``.json``, ``.md``, ``.tex``, ``.txt``)."""
     low = str(path).lower()
     for fmt, exts in EXTENSIONS.items():
         if low.endswith(exts):
