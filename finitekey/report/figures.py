@@ -19,7 +19,8 @@ from .formats import short_number, status_text
 from .plots import Curve, axis_label, blocksize_figure, ledger_figure, rate_figure, repeaterless_bound, use_log
 from .sweep import SweepTable, _scenario_at
 
-__all__ = ["KINDS", "blocksize_plot", "ledger_plot", "rate_plot", "rate_quantity", "reference_curves", "series"]
+__all__ = ["KINDS", "blocksize_plot", "ledger_plot", "rate_plot", "rate_quantity", "reference_curves", "scenario_name",
+           "series"]
 
 KINDS = ("rate", "blocksize", "ledger")
 
@@ -161,33 +162,49 @@ def reference_curves(table: SweepTable, loaded, unit: str = "bit/pulse") -> list
     return out
 
 
-def rate_plot(table: SweepTable, loaded, references: bool = True, title: str | None = None):
-    """Key rate against the first varied field, one curve per value of the second, with reference curves."""
+def scenario_name(table: SweepTable) -> str:
+    """The scenario's name for titles: the input file's stem (``examples/metro.toml`` -> ``metro``)."""
+    from pathlib import PurePath
+    path = str(table.provenance.get("input", "") or "")
+    return PurePath(path).stem if path else ""
+
+
+def _title(table: SweepTable, what: str) -> str:
+    name = scenario_name(table)
+    return f"{name} ({table.protocol}): {what}" if name else f"{table.protocol}: {what}"
+
+
+def rate_plot(table: SweepTable, loaded, references: bool = True, title: str | None = None, size=None):
+    """Key rate against the first varied field, one curve per value of the second, with reference curves.
+
+    The title names the scenario (its file name) and the protocol; ``size`` is (width, height) in inches.
+    """
     key, unit = rate_quantity(table)
     curves = series(table, key if key != "secret_key_rate_per_detection" else "_per_detection")
     if references:
         curves += reference_curves(table, loaded, unit)
     xs = table.axes[0].values
-    name = title if title is not None else f"{table.protocol}: secret key rate"
+    name = title if title is not None else _title(table, "secret key rate")
     return rate_figure(curves, axis_label(table.axes[0].field), ylabel=f"secret key rate ({unit})", title=name,
-                       logx=use_log(xs), logy=True, note=_note(table))
+                       logx=use_log(xs), logy=True, note=_note(table), size=size)
 
 
-def blocksize_plot(table: SweepTable, title: str | None = None):
+def blocksize_plot(table: SweepTable, title: str | None = None, size=None):
     """Smallest block size against the first varied field (mode ``"blocksize"`` sweeps)."""
     if table.mode != "blocksize":
         raise InputError("--kind", "blocksize", "a block-size sweep (internal: run the sweep in blocksize mode)")
     curves = series(table, "block_size")
     kinds = {r.get("block_size_kind") for r in table.rows if r.get("block_size_kind")}
     unit = kinds.pop() if len(kinds) == 1 else "block size units"
-    name = title if title is not None else f"{table.protocol}: smallest block for target '{table.target}'"
+    name = title if title is not None else _title(table, f"smallest block for target '{table.target}'")
     return blocksize_figure(curves, axis_label(table.axes[0].field), ylabel=f"smallest block ({unit})",
-                            title=name, logx=use_log(table.axes[0].values), logy=True, note=_note(table))
+                            title=name, logx=use_log(table.axes[0].values), logy=True, note=_note(table), size=size)
 
 
-def ledger_plot(ledger: list, protocol: str = "", note: str = ""):
-    """Bar chart of one result's epsilon ledger."""
-    return ledger_figure(ledger, title=f"{protocol}: epsilon ledger".lstrip(": "), note=note)
+def ledger_plot(ledger: list, protocol: str = "", note: str = "", scenario: str = "", size=None):
+    """Bar chart of one result's epsilon ledger; the title names the scenario when given."""
+    who = f"{scenario} ({protocol})" if scenario and protocol else (scenario or protocol)
+    return ledger_figure(ledger, title=f"{who}: epsilon ledger".lstrip(": "), note=note, size=size)
 
 
 def _note(table: SweepTable) -> str:

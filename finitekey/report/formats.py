@@ -44,6 +44,7 @@ __all__ = [
     "EXTENSIONS",
     "FORMATS",
     "LATEX_PACKAGES",
+    "csv_meta_lines",
     "csv_sidecar",
     "format_for_path",
     "json_text",
@@ -118,6 +119,12 @@ def to_csv(table, columns=None, pivot=None) -> str:
 
 def _pivot_csv_key(view: TableView, i: int) -> str:
     return view.columns[i].key
+
+
+def csv_meta_lines(table, columns=None, pivot=None) -> list:
+    """Provenance and caution as text lines (for stderr when the CSV goes to stdout)."""
+    view = table_view(table, columns, pivot, human=False)
+    return _provenance_lines(table) + list(view.notes) + [CAUTION]
 
 
 def sidecar_path(csv_path) -> str:

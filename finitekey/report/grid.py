@@ -1,11 +1,21 @@
 """Sweep grids: parsing ``--vary FIELD=VALUES`` and expanding several of them into a cartesian grid.
 
-``VALUES`` is either a comma-separated list (``1e6,1e8,1e10``) or a range
-``start:stop:step``.  Ranges are computed in exact decimal arithmetic, so
-``0:150:10`` gives ``0, 10, ..., 150`` with no floating-point drift; ``stop``
-is included exactly when it lands on the grid (``0:1:0.3`` gives
-``0, 0.3, 0.6, 0.9``).  Several axes form a grid in the order given: the first
-axis varies slowest, as in :func:`itertools.product`.
+``VALUES`` is a comma-separated list (``1e6,1e8,1e10``), a range
+``start:stop:step`` or a log-spaced range ``start:stop:logN``.
+
+* Ranges are computed in exact decimal arithmetic, so ``0:150:10`` gives
+  ``0, 10, ..., 150`` with no floating-point drift; ``stop`` is included
+  exactly when it lands on the grid (``0:1:0.3`` gives ``0, 0.3, 0.6, 0.9``).
+* ``start:stop:logN`` gives N points from ``start`` to ``stop`` (both
+  included, both positive) evenly spaced in ``log10``, the points of
+  ``numpy.logspace(log10(start), log10(stop), N)``.  They are computed with
+  40 significant decimal digits and rounded once to the nearest float, so
+  ``1e6:1e12:log7`` gives the exact integers ``10**6, ..., 10**12`` and an
+  in-between point such as ``10**6.5`` is the float nearest to it; a value
+  within 1e-30 (relative) of an integer is that integer.
+
+Several axes form a grid in the order given: the first axis varies slowest,
+as in :func:`itertools.product`.
 
 References
 ----------
@@ -27,8 +37,9 @@ __all__ = ["MAX_POINTS", "VARY_FORMS", "Axis", "GridPoint", "expand_grid", "pars
 #: Largest number of points of one axis and of a whole grid (a typo such as 0:1e9:1 must not hang the tool).
 MAX_POINTS = 100_000
 
-VARY_FORMS = ("FIELD=VALUES with VALUES a comma-separated list such as 1e6,1e8,1e10 "
-              "or a range start:stop:step such as 0:150:10 (stop included when it lands on the grid)")
+VARY_FORMS = ("FIELD=VALUES with VALUES a comma-separated list such as 1e6,1e8,1e10, "
+              "a range start:stop:step such as 0:150:10 (stop included when it lands on the grid) "
+              "or a log-spaced range start:stop:logN such as 1e6:1e12:log7 (N points, both ends included)")
 
 
 @dataclass(frozen=True)
@@ -99,10 +110,43 @@ def parse_value(field: str, token: str):
     return _from_decimal(d)
 
 
+def _parse_log_range(field: str, text: str, start_text: str, stop_text: str, count_text: str) -> tuple:
+    start, stop = _decimal(field, start_text), _decimal(field, stop_text)
+    try:
+        n = int(count_text[3:])
+    except ValueError:
+        n = 0
+    if n < 2 or not count_text[3:].isdigit():
+        raise InputError(field, text, "a log range start:stop:logN with N an integer of at least 2, e.g. 1e6:1e12:log7")
+    if n > MAX_POINTS:
+        raise InputError(field, text, f"a log range of at most {MAX_POINTS} points")
+    if start <= 0 or stop <= 0:
+        raise InputError(field, text, "a log range whose start and stop are both positive")
+    with decimal.localcontext() as ctx:
+        ctx.prec = 40
+        a, b = start.log10(), stop.log10()
+        out = []
+        for i in range(n):
+            if i == 0:
+                v = start
+            elif i == n - 1:
+                v = stop
+            else:
+                v = decimal.Decimal(10) ** (a + (b - a) * i / (n - 1))
+                whole = v.to_integral_value()
+                if whole != 0 and abs(v - whole) <= abs(whole) * decimal.Decimal("1e-30"):
+                    v = whole
+            out.append(_from_decimal(+v))
+    return tuple(out)
+
+
 def _parse_range(field: str, text: str) -> tuple:
     parts = text.split(":")
     if len(parts) != 3:
-        raise InputError(field, text, "a range start:stop:step with three numbers, e.g. 0:150:10")
+        raise InputError(field, text, "a range start:stop:step with three numbers, e.g. 0:150:10, "
+                                      "or start:stop:logN, e.g. 1e6:1e12:log7")
+    if parts[2].strip().lower().startswith("log"):
+        return _parse_log_range(field, text, parts[0], parts[1], parts[2].strip().lower())
     start, stop, step = (_decimal(field, p) for p in parts)
     if step == 0:
         raise InputError(field, text, "a range whose step is not zero")

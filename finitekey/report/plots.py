@@ -41,6 +41,8 @@ from ..channel import repeaterless_bound
 from ..errors import InputError
 
 __all__ = [
+    "DEFAULT_DPI",
+    "DEFAULT_SIZE",
     "PLOT_FORMATS",
     "STYLE",
     "Curve",
@@ -144,8 +146,35 @@ def use_log(values: Sequence) -> bool:
     return max(vals) / min(vals) >= 100.0
 
 
-def _new_figure(size=(7.0, 4.4)) -> Figure:
-    fig = Figure(figsize=size, dpi=110, layout="constrained")
+#: Default figure size (inches) and PNG resolution (dots per inch).
+DEFAULT_SIZE = (7.0, 4.4)
+DEFAULT_DPI = 110
+#: Height of the strip kept free at the top of a figure for the provenance stamp (points).
+STAMP_STRIP_PT = 13.0
+
+
+def _style_for(size) -> dict:
+    """The house style with fonts scaled down for narrow figures (to 70 % at half the default width)."""
+    w = float((size or DEFAULT_SIZE)[0])
+    k = max(0.7, min(1.0, w / DEFAULT_SIZE[0]))
+    st = dict(STYLE)
+    for key in ("font.size", "axes.titlesize", "legend.fontsize"):
+        st[key] = STYLE[key] * k
+    return st
+
+
+def _wrap(text: str, width_pt: float, fontsize: float) -> str:
+    """Wrap ``text`` to lines that fit ``width_pt`` at ``fontsize`` (DejaVu Sans: about 0.6 em per character)."""
+    n = max(14, int(width_pt / (0.6 * fontsize)))
+    return "\n".join(textwrap.wrap(text, n)) if len(text) > n else text
+
+
+def _new_figure(size=None, stamp: bool = False) -> Figure:
+    size = tuple(size) if size is not None else DEFAULT_SIZE
+    fig = Figure(figsize=size, dpi=DEFAULT_DPI, layout="constrained")
+    if stamp:  # keep a strip at the top for the stamp, so no title or label can run into it
+        frac = min(0.2, STAMP_STRIP_PT / (72.0 * size[1]))
+        fig.get_layout_engine().set(rect=(0.0, 0.0, 1.0, 1.0 - frac))
     FigureCanvasAgg(fig)
     return fig
 
@@ -198,7 +227,8 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
         elif c.kind == "bound":
             ax.plot(xs, ys, color="#8a8478", linestyle=(0, (1, 2)), linewidth=1.6, label=c.label, zorder=1)
             top = max(ys) * (2 if logy else 1.2)
-            ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.08, linewidth=0, zorder=0)
+            ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.12, linewidth=0, zorder=0,
+                            label="shaded: above the bound, out of reach without repeaters")
         else:
             raise InputError("curve.kind", c.kind, "one of: finite, asymptotic, bound")
     if reasons:
@@ -212,26 +242,43 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
 
 
 def _finish(ax, fig, title, note) -> None:
+    """Title, legend below the axes (outside: it never covers data), stamp in the strip kept free at the top.
+
+    Title, legend entries and axis labels are wrapped to the figure's size, so
+    a narrow figure (``--size 3.5x2.6``) keeps every text inside it.
+    """
+    from matplotlib import rcParams
+    w_pt, h_pt = fig.get_figwidth() * 72.0, fig.get_figheight() * 72.0
     if title:
-        ax.set_title(title, loc="left")
+        ax.set_title(_wrap(title, 0.8 * w_pt, rcParams["axes.titlesize"]), loc="left")
+    ax.set_ylabel(_wrap(ax.get_ylabel(), 0.75 * h_pt, rcParams["font.size"]))
+    ax.set_xlabel(_wrap(ax.get_xlabel(), 0.85 * w_pt, rcParams["font.size"]))
     handles, labels = ax.get_legend_handles_labels()
     if handles:
-        ax.legend(loc="best")
+        fs = rcParams["legend.fontsize"]
+        longest = max(len(t) for t in labels)
+        ncol = 2 if len(labels) > 1 and longest * 0.6 * fs * 2 + 80 < w_pt else 1
+        labels = [_wrap(t, w_pt / ncol - 40.0, fs) for t in labels]
+        fig.legend(handles, labels, loc="outside lower center", ncol=ncol)
     if note:
-        fig.text(0.995, 0.995, note, fontsize=6.5, color="#6d6658", ha="right", va="top")
+        fig.text(0.995, 0.997, note, fontsize=6.5, color="#6d6658", ha="right", va="top", gid="provenance-stamp")
 
 
 def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key rate (bit/pulse)",
-                title: str = "", logx: bool = False, logy: bool = True, note: str = "") -> Figure:
+                title: str = "", logx: bool = False, logy: bool = True, note: str = "", size=None) -> Figure:
     """Key rate against one field: finite-key curves, the asymptotic curve and the repeaterless bound.
+
+    ``size`` is ``(width, height)`` in inches (default :data:`DEFAULT_SIZE`).  The
+    legend is placed below the axes and the ``note`` (provenance stamp) in a
+    strip kept free above the title.
 
     Raises
     ------
     InputError
         If no curve has a point that can be drawn (e.g. every rate is zero on a log axis).
     """
-    with rc_context(STYLE):
-        fig = _new_figure()
+    with rc_context(_style_for(size)):
+        fig = _new_figure(size, stamp=bool(note))
         ax = fig.add_subplot()
         drawable = [c for c in curves if _points(c, logy, logx)[0]]
         if not drawable:
@@ -247,10 +294,10 @@ def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key 
 
 
 def blocksize_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "smallest block size",
-                     title: str = "", logx: bool = False, logy: bool = True, note: str = "") -> Figure:
+                     title: str = "", logx: bool = False, logy: bool = True, note: str = "", size=None) -> Figure:
     """Smallest block size reaching a target, against one field (one curve per value of a second field)."""
-    with rc_context(STYLE):
-        fig = _new_figure()
+    with rc_context(_style_for(size)):
+        fig = _new_figure(size, stamp=bool(note))
         ax = fig.add_subplot()
         drawable = [c for c in curves if _points(c, logy, logx)[0]]
         if not drawable:
@@ -263,7 +310,7 @@ def blocksize_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "smalle
     return fig
 
 
-def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: str = "") -> Figure:
+def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: str = "", size=None) -> Figure:
     """Horizontal bars of each ledger term's contribution (weight x epsilon), log scale, coloured by role.
 
     Parameters
@@ -290,8 +337,8 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
             raise InputError(f"ledger.{n}.contribution", v, "a positive finite number")
     roles = [str(t.get("role", "")) for t in ledger]
     colours = {"secrecy": "#1f7a74", "correctness": "#c8811a"}
-    with rc_context(STYLE):
-        fig = _new_figure((7.0, 2.0 + 0.42 * len(names)))
+    with rc_context(_style_for(size)):
+        fig = _new_figure(size or (7.0, 2.0 + 0.42 * len(names)), stamp=bool(note))
         ax = fig.add_subplot()
         ypos = np.arange(len(names))[::-1]
         for y, v, r, w in zip(ypos, shown, roles, weights):
@@ -319,11 +366,15 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
     return fig
 
 
-def figure_bytes(fig: Figure, fmt: str, provenance: dict | None = None) -> bytes:
+def figure_bytes(fig: Figure, fmt: str, provenance: dict | None = None, dpi: float | None = None) -> bytes:
     """Encode a figure as PNG, SVG or PDF bytes, with deterministic metadata (no dates).
 
     Parameters
     ----------
+    dpi : float, optional
+        PNG resolution in dots per inch (default :data:`DEFAULT_DPI`); the PNG is
+        ``width x dpi`` by ``height x dpi`` pixels and records the resolution in
+        its pHYs chunk.  Vector formats ignore it.
     provenance : dict, optional
         ``version``, ``input``, ``input_sha256``, ``command``: written into the
         file's metadata (PNG text chunks, SVG Dublin Core, PDF info dictionary).
@@ -340,5 +391,5 @@ def figure_bytes(fig: Figure, fmt: str, provenance: dict | None = None) -> bytes
             "pdf": {"CreationDate": None, "ModDate": None, "Creator": tool, "Producer": tool,
                     **({"Subject": source, "Keywords": command} if p else {})}}[fmt]
     with rc_context(STYLE):
-        fig.savefig(buf, format=fmt, dpi=110 if fmt == "png" else None, metadata=meta)
+        fig.savefig(buf, format=fmt, dpi=(dpi or DEFAULT_DPI) if fmt == "png" else None, metadata=meta)
     return buf.getvalue()

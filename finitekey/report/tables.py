@@ -29,7 +29,8 @@ from dataclasses import dataclass
 from ..errors import InputError
 from .numbers import column_kind, format_column, spell
 
-__all__ = ["Column", "TableView", "default_columns", "parse_columns", "parse_pivot", "table_view"]
+__all__ = ["Column", "TableView", "check_column_names", "default_columns", "parse_columns", "parse_pivot",
+           "parse_pivot_fields", "static_column_keys", "table_view"]
 
 
 @dataclass(frozen=True)
@@ -182,6 +183,21 @@ def check_column_names(spec, static_keys: Sequence[str]) -> None:
             continue
         raise InputError("--columns", t, "default, all, or one of the columns: " + ", ".join(static_keys)
                          + ", parameters.NAME (the chosen parameters)")
+
+
+def static_column_keys(mode: str, fields) -> list:
+    """Column keys known before a sweep runs (every column except the chosen parameters)."""
+    keys = list(fields)
+    if mode == "blocksize":
+        keys += ["block_size", "block_size_kind"]
+    keys += ["secret_key_length", "secret_key_rate_per_pulse", "secret_key_rate_per_detection",
+             "secret_key_rate_bps", "eps_total", "block_fill_time_s", "error"]
+    return keys
+
+
+def parse_pivot_fields(text: str):
+    """``ROW_FIELD,COLUMN_FIELD[,QUANTITY]`` -> (row, column, quantity or None); syntax only."""
+    return _parse_pivot_text(text)
 
 
 def _parse_pivot_text(text: str):
