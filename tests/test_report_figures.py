@@ -85,8 +85,9 @@ def test_rate_plot_from_rows_with_references(tmp_path):
     rows = [_row(i, d, n, 1e-2 * 10 ** (-0.02 * d) * (2 if n > 10**9 else 1))
             for i, (d, n) in enumerate([(d, n) for d in (0, 50, 100) for n in (10**9, 10**11)])]
     fig = rate_plot(_sweep(rows), load_scenario(p))
-    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
-    assert len(labels) == 4 and any("asymptotic" in s for s in labels) and any("repeaterless" in s for s in labels)
+    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert len(labels) == 5 and any("asymptotic" in s for s in labels) and any("repeaterless" in s for s in labels)
+    assert any("shaded" in s for s in labels)  # the band above the bound has its own entry
     assert fig.axes[0].get_xlabel() == "distance (km)" and "bit" in fig.axes[0].get_ylabel()
 
 

@@ -153,7 +153,7 @@ def test_cli_formats_parse_and_agree(bb84_file, tmp_path, capsys):
         dest = tmp_path / f"t.{fmt}"
         assert main(["table", *base, "-o", str(dest)]) == 0
         out[fmt] = dest.read_text()
-    rows = list(csv.DictReader(io.StringIO("\n".join(ln for ln in out["csv"].splitlines() if not ln.startswith("#")))))
+    rows = list(csv.DictReader(io.StringIO(out["csv"])))
     doc = json.loads(out["json"])
     assert len(rows) == len(doc["rows"]) == 3
     for c, j in zip(rows, doc["rows"]):
@@ -161,15 +161,16 @@ def test_cli_formats_parse_and_agree(bb84_file, tmp_path, capsys):
         assert float(c["secret_key_rate_per_pulse"]) == j["secret_key_rate_per_pulse"]
         assert j["design"]["expected"]["ledger"] == j["ledger"] and len(j["ledger"]) >= 3
     sha = hashlib.sha256(bb84_file.read_bytes()).hexdigest()
+    out["csv"] = (tmp_path / "t.csv.meta.json").read_text()  # the CSV's provenance is in its sidecar
     for fmt, text in out.items():
         assert sha in text and "finitekey table" in text, fmt
     assert doc["provenance"]["version"] and "--vary=channel.qber=0.01:0.03:0.01" in doc["provenance"]["command"]
     assert out["md"].count("\n|") >= 4 and r"\begin{tabular}" in out["tex"]
     # stdout when no -o
     assert main(["table", *base, "--format", "csv"]) == 0
-    def body(text):
-        return [ln for ln in text.splitlines() if not ln.startswith("# command")]
-    assert body(capsys.readouterr().out) == body(out["csv"])
+    captured = capsys.readouterr()
+    assert captured.out == (tmp_path / "t.csv").read_text()
+    assert sha in captured.err and "Caution" in captured.err  # provenance on stderr when the CSV goes to stdout
 
 
 def test_output_deterministic_across_jobs(bb84_file, tmp_path):
@@ -276,14 +277,15 @@ def test_report_with_latex_fragment(bb84_file, tmp_path):
     html_text, tex_text = page.read_text(), tex.read_text()
     assert 'id="blocksize-table"' in html_text and 'id="plot-blocksize"' in html_text
     assert hashlib.sha256(bb84_file.read_bytes()).hexdigest() in tex_text
-    assert tex_text.count(r"\begin{tabular}") == 4  # result, ledger, sweep, block size
+    assert tex_text.count(r"\begin{tabular}{") == 4  # result, ledger, sweep, block size
     assert r"\lfloor" in tex_text and tex_text.count(r"\begin{") == tex_text.count(r"\end{")
 
 
 def test_progress_bar_only_when_asked_or_on_a_terminal(bb84_file, capsys):
     base = ["table", str(bb84_file), "--vary", "channel.qber=0.01,0.02", "--jobs", "1", "--format", "csv"]
     assert main(base) == 0
-    assert capsys.readouterr().err == ""  # stderr is not a terminal under pytest: quiet
+    err = capsys.readouterr().err  # stderr is not a terminal under pytest: no bar, only the CSV's provenance
+    assert "points" not in err and all(ln.startswith("# ") for ln in err.splitlines())
     assert main([*base, "--progress"]) == 0
     assert "2/2 points" in capsys.readouterr().err
 

@@ -8,6 +8,7 @@ import math
 import numpy as np
 
 from ..cautions import CAUTION
+from ..report.numbers import format_number
 
 
 def _default(o):
@@ -38,17 +39,18 @@ def table(rows, headers) -> str:
 
 
 def fmt(x) -> str:
+    """One value for a text table: the house number formatter (:mod:`finitekey.report.numbers`).
+
+    Integers exact, digits grouped from five on (``4 100 179``); floats to 6
+    significant digits, plain decimal in [1e-4, 1e5) and scientific outside
+    (``1e-20``, ``2.19898e-2``), trailing zeros dropped.
+    """
     if isinstance(x, bool):
         return str(x)
-    if isinstance(x, (int, np.integer)):
-        return f"{int(x):,}".replace(",", " ") if abs(int(x)) >= 10000 else str(int(x))
-    if isinstance(x, (float, np.floating)):
-        x = float(x)
-        if x == 0 or not math.isfinite(x):
-            return str(x)
-        if abs(x) >= 1e5 or abs(x) < 1e-3:
-            return f"{x:.4e}"
-        return f"{x:.6g}"
+    if isinstance(x, (int, np.integer, float, np.floating)):
+        if isinstance(x, (float, np.floating)) and not math.isfinite(float(x)):
+            return str(float(x))
+        return format_number(x, "real", "text", sig=6, trim=True)
     return str(x)
 
 

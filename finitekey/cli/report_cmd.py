@@ -26,6 +26,9 @@ def _args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--blocksize", metavar="TARGET", default=None,
                    help="also tabulate and plot the smallest block along the first varied field "
                         "('positive', 'bits=N' or 'fraction=F')")
+    p.add_argument("--columns", default=None, metavar="KEYS",
+                   help="columns of the sweep table, as for 'finitekey table --columns' (default: the varied fields, "
+                        "key length, key rates and total epsilon)")
     p.add_argument("--no-sweep", action="store_true",
                    help="no sweep table or rate plot (by default, without --vary, a distance or QBER sweep is shown)")
 
@@ -39,11 +42,12 @@ def _run(args) -> int:
     targets = plan_outputs(requests, inputs=[args.scenario])  # every output checked before anything runs
     loaded = load_scenario(args.scenario)
     extra = [f"--output={args.output}"] + ([f"--latex={args.latex}"] if args.latex else []) \
-        + ([f"--blocksize={args.blocksize}"] if args.blocksize else []) + (["--no-sweep"] if args.no_sweep else [])
+        + ([f"--blocksize={args.blocksize}"] if args.blocksize else []) + (["--no-sweep"] if args.no_sweep else []) \
+        + ([f"--columns={args.columns}"] if args.columns else [])
     vary = [] if args.no_sweep else args.vary
     report = build_report(loaded, vary=vary, statistics=args.statistics, blocksize_target=args.blocksize,
                           jobs=args.jobs, cluster=args.cluster, progress=args.progress,
-                          command=command_line(args, "report", extra))
+                          command=command_line(args, "report", extra), columns=args.columns)
     html_text = to_html(report)
     tex = report_latex(report) if args.latex else None
     write_outputs(list(zip(targets, [html_text, tex])))  # both files or neither

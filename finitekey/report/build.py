@@ -15,12 +15,14 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 from ..cautions import CAUTION
 from ..errors import FiniteKeyError
 from .figures import blocksize_plot, ledger_plot, rate_plot
 from .formula import RenderedFormula, render_formula
 from .plots import figure_bytes
+from .tables import parse_columns
 from .sweep import LoadedScenario, SweepTable, _design_row, provenance, run_sweep
 
 __all__ = ["Figure", "ReportData", "build_report", "default_vary"]
@@ -53,6 +55,7 @@ class ReportData:
     provenance: dict
     caution: str = CAUTION
     notes: tuple = field(default_factory=tuple)
+    columns: str | None = None  # --columns for the design sweep table (None: the default, narrow set)
 
 
 #: Sweeps used when the caller gives no --vary: the first field the protocol has wins.
@@ -78,7 +81,7 @@ def default_vary(proto) -> list:
 
 def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = None, blocksize_target: str | None = None,
                  jobs: int | None = None, cluster: str | None = None, progress: bool | None = None,
-                 command: str = "", title: str | None = None) -> ReportData:
+                 command: str = "", title: str | None = None, columns: str | None = None) -> ReportData:
     """Compute the design at the scenario, the sweep(s) and the figures for a report.
 
     Parameters
@@ -91,6 +94,8 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
         When given, also tabulate the smallest block reaching this target along the first axis.
     jobs, cluster, progress, command
         As for :func:`finitekey.report.sweep.run_sweep`.
+    columns : str, optional
+        ``--columns`` for the sweep table (see :func:`finitekey.report.tables.parse_columns`); checked here.
 
     Raises
     ------
@@ -110,6 +115,8 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
     if vary:
         sweep = run_sweep(loaded, vary, mode="design", statistics=statistics, jobs=jobs, cluster=cluster,
                           progress=progress, command=command)
+        if columns is not None:
+            parse_columns(columns, sweep)  # an unknown column is an InputError before anything is written
     bsweep = None
     if blocksize_target and vary:
         first = vary[:1]
@@ -117,7 +124,8 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
                            jobs=jobs, cluster=cluster, progress=progress, command=command)
     figures = [Figure("plot-ledger", "Epsilon ledger of the design at the scenario: each term's contribution "
                                      "(weight × epsilon) to the total security parameter.",
-                      figure_bytes(ledger_plot(expected["ledger"], loaded.protocol), "png"))]
+                      figure_bytes(ledger_plot(expected["ledger"], loaded.protocol,
+                                               scenario=Path(loaded.path).stem), "png"))]
     if sweep is not None:
         try:
             figures.append(Figure("plot-rate", "Secret key rate per pulse along the sweep, with the reference "
@@ -145,4 +153,5 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
         references=tuple(expected.get("references", ())),
         provenance=provenance(loaded, command),
         notes=tuple(notes),
+        columns=columns,
     )

@@ -23,6 +23,7 @@ import json
 import re
 
 from .formats import short_number, status_text
+from .tables import table_view
 
 __all__ = ["CSS", "to_html"]
 
@@ -60,6 +61,26 @@ figcaption { color:var(--muted); font-size:0.82rem; margin-top:0.3rem; }
 code, pre { font-family:"DejaVu Sans Mono", monospace; font-size:0.8rem; }
 pre { background:#f3f0e7; padding:0.6rem; overflow-x:auto; white-space:pre-wrap; }
 footer { color:var(--muted); font-size:0.78rem; border-top:1px solid var(--line); margin-top:2rem; padding-top:0.6rem; }
+@media print {
+  @page { size: A4; margin: 12mm; }
+  body { background:white; font-size:9pt; }
+  header { background:none; color:var(--ink); padding:0 0 0.4rem; border-bottom:2px solid var(--ink); }
+  header p { color:var(--muted); }
+  main { max-width:none; padding:0; }
+  .scroll { overflow:visible !important; }
+  table { width:100%; max-width:100%; table-layout:auto; font-size:7pt; break-inside:auto; }
+  thead { display:table-header-group; }
+  tr { break-inside:avoid; }
+  th, td { padding:0.1rem 0.25rem; white-space:normal !important; overflow-wrap:anywhere; word-break:break-word; }
+  td.num { font-size:6.5pt; }
+  section, figure { break-inside:avoid-page; }
+  h2, h3 { break-after:avoid; }
+  img.plot { max-width:100%; height:auto; }
+  figure.formula, pre { overflow:visible; white-space:pre-wrap; overflow-wrap:anywhere; }
+  figure.formula svg { max-width:100%; height:auto; }
+  details > summary { display:none; }
+  details { display:block; }
+}
 """
 
 
@@ -68,6 +89,9 @@ def _e(x) -> str:
 
 
 def _cell(x) -> str:
+    if isinstance(x, _Spelled):
+        cls = ' class="num"' if x.numeric else ""
+        return f"<td{cls}>{_e(x.text)}</td>"
     if isinstance(x, (int, float)) and not isinstance(x, bool):
         return f'<td class="num">{_e(short_number(x))}</td>'
     if isinstance(x, (list, tuple)):
@@ -101,9 +125,23 @@ def _svg_inline(svg: str) -> str:
     return svg.replace("<svg ", '<svg role="img" aria-label="key-length formula" ', 1)
 
 
-def _sweep_section(table, ident: str) -> str:
-    headers = [f"{h} [{u}]" if u else h for _, h, u in table.columns()]
-    return _table(ident, headers, table.flat_rows())
+class _Spelled:
+    """A cell already formatted by the house formatter (numbers.py)."""
+
+    def __init__(self, text: str, numeric: bool):
+        self.text = text
+        self.numeric = numeric
+
+
+def _sweep_section(table, ident: str, columns=None) -> str:
+    """A sweep table with the chosen (default: narrow) columns, numbers formatted column by column."""
+    view = table_view(table, columns)
+    headers = [f"{h} [{c.unit}]" if c.unit else h for h, c in zip(view.headers("html"), view.columns)]
+    spelled = view.spelled("html")
+    rows = [[_Spelled(t, not isinstance(raw, str)) for t, raw in zip(srow, rrow)]
+            for srow, rrow in zip(spelled, view.rows)]
+    notes = "".join(f"<p><em>{_e(n)}</em></p>" for n in view.notes)
+    return _table(ident, headers, rows) + notes
 
 
 def _fmt_seconds(x) -> str:
@@ -228,7 +266,7 @@ def to_html(report) -> str:
     sw = ["<section>", h2("Tables and plots"), fig_html("plot-ledger")]
     if r.sweep is not None:
         sw.append(f"<h3>design sweep over {_e(', '.join(a.text for a in r.sweep.axes))}</h3>")
-        sw.append(_sweep_section(r.sweep, "sweep-table"))
+        sw.append(_sweep_section(r.sweep, "sweep-table", r.columns))
         sw.append(fig_html("plot-rate"))
     if r.blocksize is not None:
         sw.append(f"<h3>smallest block for target '{_e(r.blocksize.target)}'</h3>")

@@ -1,8 +1,10 @@
 """A LaTeX fragment of a report: the key-length formula, the chosen parameters, the ledger and the sweep tables.
 
 The fragment is meant for ``\\input`` into a document that loads ``amsmath``
-(for ``\\operatorname`` and ``\\lfloor``); it uses no other package.  Tables
-are plain ``tabular`` environments with ``\\hline`` rules.
+(for ``\\operatorname`` and ``\\lfloor``), ``booktabs`` and ``siunitx``, and
+``longtable`` and ``pdflscape`` when a sweep table needs them (the sweep tables
+come from :func:`finitekey.report.formats.to_latex`; :func:`wrap_document`
+loads all of them).
 
 References
 ----------
@@ -13,17 +15,18 @@ from __future__ import annotations
 
 from .formats import latex_escape, latex_number
 from .formats import status_text
+from .numbers import column_kind, format_column, spell
 from .formats import to_latex as table_latex
 
 __all__ = ["report_latex", "wrap_document"]
 
 
 def _kv_table(caption: str, rows, label: str) -> str:
-    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{lr}", r"\hline",
-             r"quantity & value \\", r"\hline"]
+    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{lr}", r"\toprule",
+             r"quantity & value \\", r"\midrule"]
     for k, v in rows:
-        lines.append(f"{latex_escape(k)} & {latex_number(v)} \\\\")
-    lines += [r"\hline", r"\end{tabular}", r"\caption{" + latex_escape(caption) + "}",
+        lines.append(f"{latex_escape(k)} & {latex_number(v, column_kind(k, [v]))} \\\\")
+    lines += [r"\bottomrule", r"\end{tabular}", r"\caption{" + latex_escape(caption) + "}",
               r"\label{" + label + "}", r"\end{table}"]
     return "\n".join(lines)
 
@@ -38,7 +41,7 @@ def report_latex(report) -> str:
            f"% input: {p.get('input')} (sha256 {p.get('input_sha256')})",
            f"% command: {p.get('command')}",
            f"% {r.caution}",
-           "% needs \\usepackage{amsmath}",
+           "% needs \\usepackage{amsmath,booktabs,siunitx,longtable,pdflscape}",
            r"\subsection*{" + latex_escape(r.title) + "}",
            r"\paragraph{Key-length formula.}",
            r"\begin{equation*}", exp.get("formula", "") or r"\text{(no formula)}", r"\end{equation*}"]
@@ -50,16 +53,19 @@ def report_latex(report) -> str:
                ("block fill time (s)", row["block_fill_time_s"])]
     params = [(k, v) for k, v in (row.get("parameters") or {}).items()]
     out.append(_kv_table(f"{r.protocol}: result at the scenario", summary + params, "tab:finitekey-result"))
-    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{llrrr}", r"\hline",
-             r"term & role & weight & epsilon & contribution \\", r"\hline"]
-    for t in exp["ledger"]:
+    led = exp["ledger"]
+    eps = format_column([float(t["epsilon"]) for t in led], "epsilon")
+    con = format_column([float(t["contribution"]) for t in led] + [float(exp["eps_total"])], "epsilon")
+    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{llrrr}", r"\toprule",
+             r"term & role & weight & epsilon & contribution \\", r"\midrule"]
+    for t, e, c in zip(led, eps, con):
         lines.append(f"{latex_escape(t['name'])} & {latex_escape(t['role'])} & {int(t['weight'])} & "
-                     f"{latex_number(float(t['epsilon']))} & {latex_number(float(t['contribution']))} \\\\")
-    lines += [r"\hline", f"total &  &  &  & {latex_number(float(exp['eps_total']))} \\\\", r"\hline",
+                     f"\\num{{{spell(e, 'tex')}}} & \\num{{{spell(c, 'tex')}}} \\\\")
+    lines += [r"\midrule", f"total &  &  &  & \\num{{{spell(con[-1], 'tex')}}} \\\\", r"\bottomrule",
               r"\end{tabular}", r"\caption{Epsilon ledger}", r"\label{tab:finitekey-ledger}", r"\end{table}"]
     out.append("\n".join(lines))
     if r.sweep is not None:
-        out.append(table_latex(r.sweep))
+        out.append(table_latex(r.sweep, columns=r.columns))
     if r.blocksize is not None:
         out.append(table_latex(r.blocksize))
     out.append(r"\paragraph{Assumptions.}")
@@ -76,5 +82,5 @@ def report_latex(report) -> str:
 
 def wrap_document(fragment: str) -> str:
     """A minimal complete document around a fragment (for compiling it on its own)."""
-    return ("\\documentclass{article}\n\\usepackage{amsmath}\n\\usepackage[margin=1.5cm,landscape]{geometry}\n"
+    return ("\\documentclass{article}\n\\usepackage{amsmath,booktabs,siunitx,longtable,pdflscape}\n"
             "\\begin{document}\n" + fragment + "\\end{document}\n")

@@ -11,7 +11,7 @@ of a column uses the same notation:
 * a column is written in plain decimal when every non-zero value lies in
   ``[1e-4, 1e5)`` (and the kind allows it), otherwise every non-zero value is
   written in scientific notation -- never ``0.001`` beside ``1.000e-03``;
-* counts (key lengths, block sizes, integral inputs) are exact integers with
+* counts (key lengths, block sizes) and every other integer are exact, with
   their digits grouped in threes from five digits on (``4 100 179``; the
   grouping of ISO 80000-1 and of siunitx's default, common practice);
 * epsilons (failure probabilities) are always scientific, 3 significant digits;
@@ -170,7 +170,7 @@ def _to_float_or_int(x):
     return x
 
 
-def format_column(values: Sequence, kind: str) -> list:
+def format_column(values: Sequence, kind: str, sig: int | None = None) -> list:
     """Format one column's values with one notation; returns a :class:`Number`, str or None per cell.
 
     Strings are passed through, booleans become ``"true"``/``"false"``, None
@@ -183,6 +183,8 @@ def format_column(values: Sequence, kind: str) -> list:
         The column's cells.
     kind : str
         One of :data:`KINDS` (see :func:`column_kind`).
+    sig : int, optional
+        Significant digits instead of the kind's (:data:`SIGNIFICANT`).
     """
     from ..errors import InputError
     if kind not in KINDS:
@@ -193,13 +195,13 @@ def format_column(values: Sequence, kind: str) -> list:
     for v in values:
         flat.extend(v if isinstance(v, (list, tuple)) else [v])
     nums = [v for v in flat if _is_number(v) and math.isfinite(v)]
-    sig = SIGNIFICANT.get(kind)
+    sig = sig or SIGNIFICANT.get(kind)
     if kind == "count" and all(isinstance(v, int) or float(v).is_integer() for v in nums):
         def one(v):
             return Number(str(int(v)), None, True)
         return _map(values, one)
     if kind in ("count", "text"):
-        kind, sig = "real", SIGNIFICANT["real"]
+        kind, sig = "real", sig or SIGNIFICANT["real"]
     nonzero = [abs(float(v)) for v in nums if v != 0]
     lo, hi = FIXED_RANGE
     fixed = kind != "epsilon" and all(lo <= a < hi for a in nonzero)
@@ -228,12 +230,16 @@ def format_column(values: Sequence, kind: str) -> list:
         return _map(values, one)
     if fixed:
         def one(v):
+            if isinstance(v, int):  # integers are exact counts: never rounded
+                return Number(str(v), None, True)
             if v == 0:
                 return Number("0")
             r = _round_sig(float(v), sig)
             return Number(_fixed(r, sig - 1 - r.adjusted()), None, False)
     else:
         def one(v):
+            if isinstance(v, int) and kind != "epsilon":  # integers are exact counts: never rounded
+                return Number(str(v), None, True)
             if v == 0:
                 return Number("0")
             r = _round_sig(float(v), sig)
@@ -293,9 +299,16 @@ def spell(cell, target: str = "text", missing: str = "–") -> str:
     return f"{digits}×10{str(cell.exponent).translate(_SUPERSCRIPT)}"
 
 
-def format_number(x, kind: str = "real", target: str = "text") -> str:
-    """One value formatted alone (a column of one): ``format_number(1.5e-7, "epsilon") == "1.50e-7"``."""
-    return spell(format_column([x], kind)[0], target)
+def format_number(x, kind: str = "real", target: str = "text", sig: int | None = None, trim: bool = False) -> str:
+    """One value formatted alone (a column of one): ``format_number(1.5e-7, "epsilon") == "1.50e-7"``.
+
+    ``trim`` drops trailing zeros of the digits (for a value shown alone, where
+    no column needs aligning: ``0.5`` rather than ``0.500000``).
+    """
+    cell = format_column([x], kind, sig)[0]
+    if trim and isinstance(cell, Number) and "." in cell.digits:
+        cell = Number(cell.digits.rstrip("0").rstrip("."), cell.exponent, cell.group)
+    return spell(cell, target)
 
 
 def _csv_up15(x: float) -> str:
