@@ -15,6 +15,7 @@ kernel refusal (``chattr +i``) when the machine allows it and is skipped otherwi
 from __future__ import annotations
 
 import errno
+import json
 import os
 import shutil
 import socket
@@ -182,7 +183,8 @@ def test_extension_that_names_no_format_is_refused_unless_format_is_explicit(sce
     _one_error_line(capsys, "out.xlsx", ".csv", "--format")
     assert not odd.exists()
     assert main(_table(scenario, "--format", "csv", "-o", str(odd))) == 0  # named explicitly: the user's call
-    assert odd.read_text().startswith("#")
+    assert odd.read_text().startswith("status,")  # plain CSV; its provenance in the sidecar beside it
+    assert json.loads((tmp_path / "out.xlsx.meta.json").read_text())["caution"].startswith("Caution")
     inferred = tmp_path / "t.JSON"
     assert main(_table(scenario, "-o", str(inferred))) == 0
     assert inferred.read_text().lstrip().startswith("{")

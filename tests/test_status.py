@@ -344,8 +344,9 @@ def test_table_rows_show_status_and_no_parameters_without_key():
     assert cells[2][status] == "no key: " + NoKeyReason.THRESHOLD_EXCEEDED.text and cells[2][mu] is None
     csv_last = [ln for ln in to_csv(t).splitlines() if ln.startswith("200")][0]
     assert "no key: " in csv_last and "0.5" not in csv_last
-    md = to_markdown(t)
-    assert "| 200 | no key: " in md
+    md = to_markdown(t)  # human tables: a short "no key" cell, the reason listed under the table
+    assert "| 200 | no key |" in md
+    assert "- no key at link.distance_km = 200: " + NoKeyReason.THRESHOLD_EXCEEDED.text in md
 
 
 def test_real_sweep_row_without_key_has_blank_parameters(tmp_path):

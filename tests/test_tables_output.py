@@ -368,3 +368,17 @@ def test_plot_command_size_dpi_and_scenario_title(tmp_path, capsys):
     loaded = load_scenario(scenario)
     fig = rate_plot(run_sweep(loaded, ["channel.qber=0.01,0.03"], jobs=1, progress=False), loaded)
     assert "riverside_link" in fig.axes[0].get_title(loc="left")
+
+
+def test_csv_and_sidecar_are_written_both_or_neither(tmp_path, capsys):
+    # The sidecar goes through the same all-or-nothing write as the CSV (finitekey.outputs): when the sidecar's
+    # name is taken by a directory, the command stops before the sweep and writes no CSV.
+    scenario = tmp_path / "link.toml"
+    scenario.write_text("[protocol]\nname = \"bb84\"\n[channel]\nqber = 0.02\n[budget]\nsignals = 1e10\n"
+                        "detection_probability = 1e-3\n")
+    (tmp_path / "t.csv.meta.json").mkdir()
+    assert main(["table", str(scenario), "--vary", "channel.qber=0.01,0.02", "--jobs", "1",
+                 "-o", str(tmp_path / "t.csv")]) == 2
+    err = capsys.readouterr().err
+    assert "t.csv.meta.json" in err and err.count("\n") == 1
+    assert not (tmp_path / "t.csv").exists()

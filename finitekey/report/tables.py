@@ -11,7 +11,8 @@ values -- which every output format lays out (:mod:`finitekey.report.formats`,
   (``default,parameters.key_basis_probability``).  An unknown key is an
   :class:`~finitekey.errors.InputError` listing the valid ones.
 * The default columns (:func:`default_columns`) are the varied fields, the block
-  size (block-size sweeps), the key length, the key rate per pulse (or per
+  size (block-size sweeps), the status when some row has no key (``no key``, the
+  reasons listed under the table), the key length, the key rate per pulse (or per
   detection when there is no per-pulse rate), the key rate per second and the
   total epsilon: at most eight narrow columns, which fit a portrait page.
   Machine formats (CSV, JSON) default to every column.
@@ -27,7 +28,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from ..errors import InputError
-from .numbers import column_kind, format_column, spell
+from .numbers import column_kind, format_column, format_number, spell
 
 __all__ = ["Column", "TableView", "check_column_names", "default_columns", "parse_columns", "parse_pivot",
            "parse_pivot_fields", "static_column_keys", "table_view"]
@@ -129,6 +130,8 @@ def default_columns(table) -> list:
     if any(r.get("secret_key_rate_bps") is not None for r in table.rows):
         out.append("secret_key_rate_bps")
     out.append("eps_total")
+    if any(not (r.get("status") or {"key": True}).get("key", True) for r in table.rows if not r.get("error")):
+        out.insert(len(table.fields) + (1 if table.mode == "blocksize" else 0), "status")  # only when a row has none
     return [k for k in out if k in keys]
 
 
@@ -240,12 +243,29 @@ def parse_pivot(text: str, table) -> dict:
     return {"row_field": rf, "column_field": cf, "quantity": q}
 
 
+def _where(row) -> str:
+    """A grid point as text, values as the table shows them (``link.distance_km = 200``)."""
+    return ", ".join(f"{k} = {format_number(v, 'input') if isinstance(v, (int, float)) else v}"
+                     for k, v in row.get("point", {}).items()) or "the scenario"
+
+
 def _error_notes(table) -> list:
     notes = []
     for r in table.rows:
         if r.get("error"):
-            where = ", ".join(f"{k} = {v}" for k, v in r.get("point", {}).items()) or "the scenario"
+            where = _where(r)
             notes.append(f"no result at {where}: {r['error']}")
+    return notes
+
+
+def _status_notes(table) -> list:
+    notes = []
+    for r in table.rows:
+        st = r.get("status") or {}
+        if st and not st.get("key", True) and not r.get("error"):
+            where = _where(r)
+            reason = st.get("reason_text") or st.get("reason")
+            notes.append(f"no key at {where}: {reason}" + (f"; {st['detail']}" if st.get("detail") else ""))
     return notes
 
 
@@ -283,6 +303,11 @@ def table_view(table, columns=None, pivot=None, human: bool = True) -> TableView
     flat = table.flat_rows()
     index = {k: i for i, k in enumerate(all_cols)}
     rows = tuple(tuple(cells[index[k]] for k in keys) for cells in flat)
+    if human and "status" in keys:  # short cells; the reasons go under the table
+        j = keys.index("status")
+        rows = tuple(r[:j] + (("no key" if isinstance(r[j], str) and r[j].startswith("no key") else r[j]),) + r[j + 1:]
+                     for r in rows)
+        notes = _status_notes(table) + notes
     cols = []
     for j, k in enumerate(keys):
         h, u = all_cols[k]
