@@ -279,15 +279,44 @@ def test_print_css_lets_wide_tables_wrap():
     rules = dict((sel.strip(), body) for sel, body in re.findall(r"([^{}]+)\{([^{}]*)\}", m.group(1)))
     assert "overflow:visible" in rules[".scroll"].replace(" ", "")
     assert "white-space:normal" in rules["th, td"].replace(" ", "")
+    assert "white-space:nowrap" in rules["td.num"].replace(" ", "")  # a number is never broken inside
     assert "width:100%" in rules["table"].replace(" ", "")
     assert "table-header-group" in rules["thead"]
+    assert "landscape" in rules["@page wide"] and "page:wide" in rules[".wide"].replace(" ", "")
 
 
 def test_report_sweep_table_has_default_columns_and_one_notation():
     from finitekey.report.html import _sweep_section
     html_text = _sweep_section(_wide_table(), "sweep-table")
-    assert html_text.count("<th>") == len(table_view(_wide_table()).columns) <= 8
+    assert html_text.count("<th>") == len(table_view(_wide_table()).columns) <= 7
     assert "e-0" not in html_text and "×10⁻" in html_text
+    assert 'class="scroll"' in html_text  # fits a portrait page
+    wide = _sweep_section(_wide_table(), "sweep-table", "all")
+    assert 'class="scroll wide"' in wide  # printed on a landscape page
+    assert "\u202f" in wide  # counts grouped with narrow no-break spaces: never broken across lines
+
+
+def test_printed_report_puts_a_wide_table_on_a_landscape_page(tmp_path):
+    # Reference: headless Chromium's own print to PDF; the PDF's page boxes (/MediaBox) are plain text.
+    chromium = shutil.which("chromium")
+    if chromium is None:
+        pytest.skip("needs chromium (apt-get install -y chromium)")
+    scenario = tmp_path / "link.toml"
+    scenario.write_text("[protocol]\nname = \"bb84\"\n[channel]\nqber = 0.02\n[budget]\nsignals = 1e10\n"
+                        "detection_probability = 1e-3\nsignal_rate_hz = 1e9\n[security]\neps_sec = 1e-10\n"
+                        "eps_cor = 1e-15\n")
+    page = tmp_path / "r.html"
+    assert main(["report", str(scenario), "--vary", "channel.qber=0.01:0.05:0.01", "--columns", "all",
+                 "--jobs", "1", "-o", str(page)]) == 0
+    pdf = tmp_path / "r.pdf"
+    res = subprocess.run([chromium, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+                          "--disable-background-networking", f"--user-data-dir={tmp_path / 'profile'}",
+                          f"--print-to-pdf={pdf}", "--no-pdf-header-footer", page.as_uri()],
+                         capture_output=True, text=True, timeout=120, check=False)
+    assert pdf.exists(), res.stderr[-2000:]
+    boxes = re.findall(rb"/MediaBox \[0 0 ([\d.]+) ([\d.]+)\]", pdf.read_bytes())
+    assert any(float(w) < float(h) for w, h in boxes)  # portrait pages
+    assert any(float(w) > float(h) for w, h in boxes)  # and the landscape page of the wide sweep table
 
 
 # ------------------------------------------------------------------------------------------ plots

@@ -63,6 +63,8 @@ pre { background:#f3f0e7; padding:0.6rem; overflow-x:auto; white-space:pre-wrap;
 footer { color:var(--muted); font-size:0.78rem; border-top:1px solid var(--line); margin-top:2rem; padding-top:0.6rem; }
 @media print {
   @page { size: A4; margin: 12mm; }
+  @page wide { size: A4 landscape; margin: 10mm; }
+  .wide { page: wide; }
   body { background:white; font-size:9pt; }
   header { background:none; color:var(--ink); padding:0 0 0.4rem; border-bottom:2px solid var(--ink); }
   header p { color:var(--muted); }
@@ -71,8 +73,10 @@ footer { color:var(--muted); font-size:0.78rem; border-top:1px solid var(--line)
   table { width:100%; max-width:100%; table-layout:auto; font-size:7pt; break-inside:auto; }
   thead { display:table-header-group; }
   tr { break-inside:avoid; }
-  th, td { padding:0.1rem 0.25rem; white-space:normal !important; overflow-wrap:anywhere; word-break:break-word; }
-  td.num { font-size:6.5pt; }
+  th, td { padding:0.1rem 0.25rem; white-space:normal !important; }
+  th { overflow-wrap:anywhere; }
+  td.num { font-size:6.5pt; white-space:nowrap !important; }
+  td.list { white-space:normal !important; }
   section, figure { break-inside:avoid-page; }
   h2, h3 { break-after:avoid; }
   img.plot { max-width:100%; height:auto; }
@@ -90,7 +94,7 @@ def _e(x) -> str:
 
 def _cell(x) -> str:
     if isinstance(x, _Spelled):
-        cls = ' class="num"' if x.numeric else ""
+        cls = (' class="num list"' if x.is_list else ' class="num"') if x.numeric else ""
         return f"<td{cls}>{_e(x.text)}</td>"
     if isinstance(x, (int, float)) and not isinstance(x, bool):
         return f'<td class="num">{_e(short_number(x))}</td>'
@@ -101,11 +105,12 @@ def _cell(x) -> str:
     return f"<td>{_e(short_number(x) if x is None else x)}</td>"
 
 
-def _table(ident: str | None, headers, rows) -> str:
+def _table(ident: str | None, headers, rows, wide: bool = False) -> str:
     attr = f' id="{_e(ident)}"' if ident else ""
     head = "".join(f"<th>{_e(h)}</th>" for h in headers)
     body = "".join("<tr>" + "".join(_cell(c) for c in r) + "</tr>" for r in rows)
-    return f'<div class="scroll"><table{attr}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
+    cls = "scroll wide" if wide else "scroll"
+    return f'<div class="{cls}"><table{attr}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>'
 
 
 def _kv_rows(d: dict, prefix: str = "") -> list:
@@ -128,9 +133,10 @@ def _svg_inline(svg: str) -> str:
 class _Spelled:
     """A cell already formatted by the house formatter (numbers.py)."""
 
-    def __init__(self, text: str, numeric: bool):
+    def __init__(self, text: str, numeric: bool, is_list: bool = False):
         self.text = text
         self.numeric = numeric
+        self.is_list = is_list
 
 
 def _sweep_section(table, ident: str, columns=None) -> str:
@@ -138,10 +144,11 @@ def _sweep_section(table, ident: str, columns=None) -> str:
     view = table_view(table, columns)
     headers = [f"{h} [{c.unit}]" if c.unit else h for h, c in zip(view.headers("html"), view.columns)]
     spelled = view.spelled("html")
-    rows = [[_Spelled(t, not isinstance(raw, str)) for t, raw in zip(srow, rrow)]
+    rows = [[_Spelled(t, not isinstance(raw, str), isinstance(raw, (list, tuple))) for t, raw in zip(srow, rrow)]
             for srow, rrow in zip(spelled, view.rows)]
     notes = "".join(f"<p><em>{_e(n)}</em></p>" for n in view.notes)
-    return _table(ident, headers, rows) + notes
+    # more than 7 columns: printed on a landscape page (CSS named page), numbers never broken inside
+    return _table(ident, headers, rows, wide=len(view.columns) > 7) + notes
 
 
 def _fmt_seconds(x) -> str:
