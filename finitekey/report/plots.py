@@ -39,6 +39,7 @@ from matplotlib.patches import Patch
 
 from ..channel import repeaterless_bound
 from ..errors import InputError
+from .numbers import format_number
 
 __all__ = [
     "DEFAULT_DPI",
@@ -167,6 +168,11 @@ def _wrap(text: str, width_pt: float, fontsize: float) -> str:
     """Wrap ``text`` to lines that fit ``width_pt`` at ``fontsize`` (DejaVu Sans: about 0.6 em per character)."""
     n = max(14, int(width_pt / (0.6 * fontsize)))
     return "\n".join(textwrap.wrap(text, n)) if len(text) > n else text
+
+
+def _eps(x: float) -> str:
+    """An epsilon as the tables show it (the house number formatter, 3 significant digits)."""
+    return format_number(x, "epsilon", "text")
 
 
 def _new_figure(size=None, stamp: bool = False) -> Figure:
@@ -345,7 +351,7 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
             ax.barh([y], [v], color="white" if w == 0 else colours.get(r, "#7b4f8e"), height=0.6, zorder=3,
                     edgecolor=colours.get(r, "#7b4f8e"), hatch="///" if w == 0 else None)
         for y, w, e, v in zip(ypos, weights, eps, shown):
-            label = f"{w} × {e:.2e}" if w > 1 else (f"{v:.2e}" if w == 1 else f"{e:.2e} (weight 0)")
+            label = f"{w} × {_eps(e)}" if w > 1 else (_eps(v) if w == 1 else f"{_eps(e)} (weight 0)")
             ax.text(v * 1.15, y, label, va="center", fontsize=7.5, color="#2b3a55")
         contrib = [c for c in contrib if c > 0] or shown
         ax.set_yticks(ypos, names)
@@ -355,7 +361,7 @@ def ledger_figure(ledger: Sequence[dict], title: str = "epsilon ledger", note: s
         ax.set_xlim(lo / 10, total * 30)
         ax.axvline(total, color="#b23b2e", linestyle=(0, (4, 2)), linewidth=1.2, gid="total-epsilon")
         ax.set_xlabel("contribution to the security parameter (weight × epsilon)")
-        handles = [Line2D([], [], color="#b23b2e", linestyle=(0, (4, 2)), label=f"total epsilon = {total:.2e}")]
+        handles = [Line2D([], [], color="#b23b2e", linestyle=(0, (4, 2)), label=f"total epsilon = {_eps(total)}")]
         handles += [Patch(facecolor=col, label=f"{role} term") for role, col in colours.items() if role in roles]
         if 0 in weights:
             handles.append(Patch(facecolor="white", edgecolor="#44546a", hatch="///",
