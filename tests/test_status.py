@@ -394,3 +394,11 @@ def test_design_result_default_status_follows_expected():
     d = DesignResult("bb84", {"p_x": 0.9}, zero, 0.0)
     assert d.status.reason is NoKeyReason.NO_POSITIVE_DESIGN and "phase-error" in d.status.detail
     assert math.isclose(d.to_dict()["parameters_tried"]["p_x"], 0.9)
+
+
+def test_rate_plot_with_no_key_anywhere_names_the_reason():
+    from finitekey.errors import InputError
+    only = Curve("none", (), (), meta={"no_key_x": (1.0,), "no_key_reasons": ("no key: beyond the threshold",)})
+    with pytest.raises(InputError) as info:
+        rate_figure([only], "x")
+    assert "beyond the threshold" in str(info.value)

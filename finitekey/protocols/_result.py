@@ -76,7 +76,8 @@ _REASON_TEXT = {
                                           "exceed the min-entropy",
     NoKeyReason.BELOW_ONE_BIT: "the certified key-length formula is below one bit",
     NoKeyReason.BLOCK_TOO_SMALL: "block too small: the expected counts leave no key or no test bits",
-    NoKeyReason.NO_POSITIVE_DESIGN: "no design with a positive key found within the search limits",
+    NoKeyReason.NO_POSITIVE_DESIGN: "no design with a positive key found (within the search limits, or at the "
+                                    "fixed parameters given)",
 }
 
 

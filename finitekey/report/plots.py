@@ -288,7 +288,9 @@ def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key 
         ax = fig.add_subplot()
         drawable = [c for c in curves if _points(c, logy, logx)[0]]
         if not drawable:
-            raise InputError("plot", "no positive key rate at any point",
+            reasons = sorted({r.removeprefix("no key: ") for c in curves for r in c.meta.get("no_key_reasons", ())})
+            raise InputError("plot", "no positive key rate at any point"
+                             + (" (no key: " + "; ".join(reasons) + ")" if reasons else ""),
                              "a sweep with at least one positive key rate (try a shorter distance or a larger block)")
         if ylabel.endswith("(bit/pulse)") and any(c.kind == "bound" for c in drawable):
             ylabel = ylabel.replace("(bit/pulse)", "(bit per pulse / channel use)")
