@@ -402,3 +402,15 @@ def test_rate_plot_with_no_key_anywhere_names_the_reason():
     with pytest.raises(InputError) as info:
         rate_figure([only], "x")
     assert "beyond the threshold" in str(info.value)
+
+
+def test_reach_without_key_at_0_km_gives_no_distance_and_the_reason(capsys):
+    # 80 dB of fixed loss: 10^-8 x 0.1 efficiency = 1e-9 per photon, below the 6e-7 dark-count probability
+    sc = D.with_field(D.default_scenario(), "link.extra_loss_db", 80.0)
+    r = DD.reach(sc)
+    assert r.reach_km is None and not r.limit_reached and not r.status.key
+    assert r.status.reason is NoKeyReason.THRESHOLD_EXCEEDED and r.status.detail.startswith("at 0 km")
+    d = r.to_dict()
+    assert d["reach_km"] is None and "secret_key_length_at_reach" not in d
+    from finitekey.cli.design_cmd import render_reach
+    assert "none: no key even at 0 km" in render_reach(r)
