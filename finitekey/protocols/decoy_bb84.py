@@ -683,8 +683,8 @@ def _flag_worse_data(block, statistics, prec, analysis, result):
         counts = list(getattr(block, f"{basis}_{kind}"))
         errors = list(getattr(block, f"{basis}_errors"))
         new = counts[w] + delta
-        if new < 0 or (kind == "detections" and new < errors[w]) or (kind == "errors"
-                                                                     and new > getattr(block, f"{basis}_detections")[w]):
+        detections = getattr(block, f"{basis}_detections")[w]
+        if new < 0 or (kind == "detections" and new < errors[w]) or (kind == "errors" and new > detections):
             continue
         counts[w] = new
         changed = {f"{basis}_{kind}": tuple(counts)}
