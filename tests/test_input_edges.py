@@ -257,3 +257,94 @@ def test_decoy_block_accepts_eps_total_like_bb84():
     with pytest.raises(InputError) as info:
         protocols.get("decoy-bb84").parse_block(dict(DECOY_BLOCK, eps_total=1e-9))
     assert info.value.field == "eps_sec"
+
+
+# --- command-line usage errors: one line, the option named once, exit 2 ----------------------------------------
+@pytest.mark.parametrize("argv, needles", [
+    (["bound", "hoeffding", "n=10", "--eps", "1e-3", "--dps", "abc"], ["--dps = 'abc' is not allowed", "[15, 1000]"]),
+    (["bound", "hoeffding", "n=10", "--eps", "1e-3", "--dps", "0"], ["--dps = '0' is not allowed"]),
+    (["bound", "hoeffding", "n=10", "--eps", "1e-3", "--dps", "1e6"], ["--dps = '1e6' is not allowed"]),
+    (["keylength"], ["block is missing"]),
+    (["bound", "hoeffding", "--eps", "1", "--deviation", "2"], ["--deviation", "--eps"]),
+    (["table", "x.toml", "--jobs", "0"], ["--jobs = '0' is not allowed"]),
+    (["table", "x.toml", "--format", "xls"], ["--format = 'xls' is not allowed", "csv"]),
+    (["nosuch"], ["'nosuch' is not allowed", "keylength"]),
+    (["keylength", "x.json", "--bogus"], ["--bogus"]),
+])
+def test_usage_errors_are_one_line(capsys, argv, needles):
+    with pytest.raises(SystemExit) as info:
+        main(argv)
+    out, err = capsys.readouterr()
+    assert info.value.code == 2 and out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert "usage:" not in err and "--help" in lines[0]
+    for n in needles:
+        assert n in lines[0], (n, lines[0])
+    if " = " in needles[0]:  # the option is named once (argparse alone says "argument --jobs: --jobs = ...")
+        option = needles[0].split(" = ")[0]
+        assert lines[0].count(option + " ") == 1, lines[0]
+
+
+def test_dps_inside_its_range_still_works(capsys):
+    rc, out, err = run(capsys, ["bound", "hoeffding", "n=1000", "--eps", "1e-3", "--dps", "30", "--json"])
+    assert rc == 0, err
+    d = json.loads(out)
+    # mpmath at 30 digits against the float64 value of the same bound (agreement to float precision)
+    assert math.isclose(float(d["deviation_mp"]), d["deviation"], rel_tol=1e-12)
+
+
+# --- a NAME=VALUE pair given twice is refused ------------------------------------------------------------------
+def test_repeated_bound_parameter_is_refused(capsys):
+    line = one_line_error(*run(capsys, ["bound", "hoeffding", "n=10", "n=20", "--eps", "1e-3"]), "n = 'n=20'")
+    assert "given once" in line
+
+
+def test_repeated_vary_field_is_refused(tmp_path, capsys):
+    path = write(tmp_path, "s.toml", bb84_toml())
+    one_line_error(*run(capsys, ["table", path, "--vary", "channel.qber=0.01", "--vary", "channel.qber=0.02",
+                                 "--jobs", "1", "--quiet"]), "channel.qber", "at most once")
+    out = tmp_path / "l.png"
+    one_line_error(*run(capsys, ["plot", path, "--kind", "ledger", "--vary", "channel.qber=0.01",
+                                 "--vary", "channel.qber=0.02", "-o", str(out)]), "at most once")
+    assert not out.exists()
+
+
+# --- every JSON output carries the caution; the bounds text too ------------------------------------------------
+def test_every_json_output_has_the_caution(tmp_path, capsys):
+    from finitekey.cautions import CAUTION
+
+    bb = write(tmp_path, "b.json", json.dumps(dict(BB84_BLOCK, label="blk-1")))
+    batch = write(tmp_path, "b.jsonl", json.dumps(BB84_BLOCK) + "\n" + json.dumps(DECOY_BLOCK) + "\n")
+    scen = write(tmp_path, "s.toml", bb84_toml())
+    for argv in (["bounds", "--json"], ["bound", "hoeffding", "n=100", "--eps", "1e-3", "--json"],
+                 ["keylength", bb, "--json"], ["design", scen, "--json"],
+                 ["blocksize", scen, "--target", "positive", "--json"]):
+        rc, out, err = run(capsys, argv)
+        assert rc == 0, (argv, err)
+        assert json.loads(out)["caution"] == CAUTION, argv
+    rc, out, _ = run(capsys, ["keylength", batch, "--json"])
+    assert rc == 0
+    assert [json.loads(x)["caution"] for x in out.splitlines()] == [CAUTION, CAUTION]
+    rc, out, _ = run(capsys, ["bounds"])
+    assert rc == 0 and CAUTION in out
+
+
+def test_single_block_keeps_its_label(tmp_path, capsys):
+    for block in (dict(BB84_BLOCK, label="blk-1"), dict(DECOY_BLOCK, label="blk-1")):
+        path = write(tmp_path, "b.json", json.dumps(block))
+        rc, out, _ = run(capsys, ["keylength", path, "--json"])
+        assert rc == 0 and json.loads(out)["label"] == "blk-1"
+        rc, out, _ = run(capsys, ["keylength", path])
+        assert rc == 0 and "blk-1" in out
+
+
+def test_statistics_help_lists_each_protocols_methods(capsys):
+    with pytest.raises(SystemExit):
+        main(["keylength", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    for proto in protocols.all_protocols():
+        assert proto.name + ":" in text
+        for m in proto.statistics_methods:
+            assert m in text
+    assert "kato" in text and "serfling" in text

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import re
 import sys
 from typing import NamedTuple
 
@@ -46,6 +47,66 @@ SUBCOMMANDS = (
     SubCommand("plot", "plot_cmd", "PLOT", "plot key rate, smallest block size or the epsilon ledger"),
     SubCommand("report", "report_cmd", "REPORT", "self-contained offline HTML report (and optional LaTeX fragment)"),
 )
+
+
+class Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line: field, value given, what is allowed; exit status 2.
+
+    argparse's own errors print the usage block and often repeat the option's name ("argument --jobs:
+    --jobs = ..."); here they are rewritten into the shape of :class:`~finitekey.errors.InputError` messages,
+    followed only by a pointer to ``--help``.  Sub-parsers inherit the class.
+    """
+
+    def error(self, message):
+        """Print one line to stderr and exit with status 2 (overrides :meth:`argparse.ArgumentParser.error`)."""
+        self.exit(2, f"{self.prog}: error: {one_line_usage_error(message)} (see {self.prog} --help)\n")
+
+
+def _unquote(text: str) -> str:
+    return ", ".join(t.strip().strip("'\"") for t in text.split(","))
+
+
+def one_line_usage_error(message: str) -> str:
+    """Rewrite an argparse error message as ``FIELD = VALUE is not allowed; expected ...`` (one line).
+
+    Parameters
+    ----------
+    message : str
+        The message argparse passes to :meth:`Parser.error`.
+
+    Returns
+    -------
+    str
+        The same information on one line, the option named once.
+    """
+    message = " ".join(str(message).split())
+    m = re.fullmatch(r"the following arguments are required: (.*)", message)
+    if m:
+        names = m.group(1)
+        return f"{names} {'is' if ',' not in names else 'are'} missing; expected a value (a required argument)"
+    m = re.fullmatch(r"unrecognized arguments: (.*)", message)
+    if m:
+        return f"{m.group(1)} is not allowed; expected only the options and arguments of this command"
+    m = re.fullmatch(r"argument (\S+): (.*)", message)
+    if not m:
+        return message
+    names, rest = m.group(1), m.group(2)
+    name = names.split("/")[-1]
+    if rest.startswith(tuple(f"{n} " for n in names.split("/"))):
+        return rest  # our own option types already say "NAME = VALUE is not allowed; expected ..."
+    c = re.fullmatch(r"invalid choice: (.*?) \(choose from (.*)\)", rest)
+    if c:
+        return f"{name} = {c.group(1)} is not allowed; expected one of: {_unquote(c.group(2))}"
+    v = re.fullmatch(r"invalid (\w+) value: (.*)", rest)
+    if v:
+        kind = {"int": "an integer", "float": "a number"}.get(v.group(1), "a valid value")
+        return f"{name} = {v.group(2)} is not allowed; expected {kind}"
+    if rest in ("expected one argument", "expected at least one argument"):
+        return f"{name} is missing its value; expected {name} VALUE"
+    w = re.fullmatch(r"not allowed with argument (\S+)", rest)
+    if w:
+        return f"{name} is not allowed together with {w.group(1).split('/')[-1]}; expected one of the two"
+    return f"{name}: {rest}"
 
 
 def load_subcommand(entry: SubCommand):
@@ -90,7 +151,7 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
     """
     argv = sys.argv[1:] if argv is None else list(argv)
     chosen = _chosen(argv)
-    parser = argparse.ArgumentParser(
+    parser = Parser(
         prog="finitekey",
         description="Finite-key security parameters for QKD: epsilon budgets, block sizes, parameter design, "
                     "certified key lengths. Design aid only; see the cautions in every output.")

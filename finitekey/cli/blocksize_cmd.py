@@ -7,7 +7,8 @@ from types import SimpleNamespace
 
 from ..protocols import BlockTarget
 from .design_cmd import load_scenario, render_design
-from .render import caution_block, fmt, table, to_json
+from .keylength_cmd import statistics_help
+from .render import caution_block, fmt, json_document, table, to_json
 
 __all__ = ["COMMAND"]
 
@@ -17,7 +18,7 @@ def _args(p: argparse.ArgumentParser) -> None:
     p.add_argument("--target", required=True,
                    help="'positive' (any key), 'bits=L' (at least L key bits) or 'fraction=F' (F of the "
                         "asymptotic rate)")
-    p.add_argument("--statistics", default=None, help="parameter-estimation statistics (default: the scenario's)")
+    p.add_argument("--statistics", default=None, help=statistics_help(design=True))
     p.add_argument("--json", action="store_true", help="machine-readable output")
 
 
@@ -26,7 +27,7 @@ def _run(args) -> int:
     proto, sc = load_scenario(args.scenario)
     res = proto.blocksize(sc, target, args.statistics)
     if args.json:
-        print(to_json(res.to_dict()))
+        print(to_json(json_document(res.to_dict())))
         return 0
     rows = [["target", str(res.target), ""], ["smallest block", fmt(int(res.size)), res.size_kind],
             ["status", res.status.text(), ""]]

@@ -8,8 +8,10 @@ import mpmath
 from types import SimpleNamespace
 
 from .. import bounds
+from ..domains import DPS
 from ..errors import InputError
-from .render import caution_block, fmt, table, to_json
+from .options import domain_option, number
+from .render import caution_block, fmt, json_document, table, to_json
 
 
 def _list_args(p: argparse.ArgumentParser) -> None:
@@ -19,11 +21,12 @@ def _list_args(p: argparse.ArgumentParser) -> None:
 def _list_run(args) -> int:
     items = [b.describe() for b in bounds.all_bounds()]
     if args.json:
-        print(to_json(items))
+        print(to_json(json_document({"bounds": items})))
         return 0
     print(table([[d["name"], "exact" if d["exact"] else "bound", d["title"]] for d in items],
                 ["name", "kind", "title"]))
     print("\nEvaluate one with: finitekey bound NAME --eps EPS PARAM=VALUE ...  (finitekey bound NAME --help-params)")
+    print("\n" + caution_block())
     return 0
 
 
@@ -34,20 +37,13 @@ def _eval_args(p: argparse.ArgumentParser) -> None:
     g.add_argument("--eps", type=str, help="failure probability: print the deviation it guarantees")
     g.add_argument("--deviation", type=str, help="deviation: print its failure probability")
     p.add_argument("--certified", action="store_true", help="also print a certified (ball-arithmetic) enclosure")
-    p.add_argument("--dps", type=int, default=0, help="also evaluate with mpmath at this many decimal digits")
+    p.add_argument("--dps", type=domain_option("--dps", DPS), default=None,
+                   help=f"also evaluate with mpmath at this many decimal digits ({DPS.describe()})")
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.add_argument("--help-params", action="store_true", help="list the bound's parameters and exit")
 
 
-def _number(field: str, text: str):
-    t = text.strip()
-    try:
-        if t.lstrip("+-").isdigit():
-            return int(t)
-        x = float(t)
-    except ValueError:
-        raise InputError(field, text, "a number, e.g. 1000, 1e6 or 0.05") from None
-    return int(x) if x.is_integer() and abs(x) < 2**53 and "." not in t and "e" in t.lower() else x
+_number = number
 
 
 def _eval_run(args) -> int:
@@ -63,15 +59,18 @@ def _eval_run(args) -> int:
         if "=" not in a:
             raise InputError("PARAM=VALUE", a, "an assignment such as n=1000000")
         k, v = a.split("=", 1)
-        params[k.strip()] = _number(k.strip(), v)
+        k = k.strip()
+        if k in params:
+            raise InputError(k, a, f"each parameter given once ({k} = {params[k]!r} is given before)")
+        params[k] = _number(k, v)
     if args.eps is None and args.deviation is None:
         raise InputError("--eps/--deviation", None, "one of --eps EPS or --deviation VALUE")
     out = {"bound": b.name, "parameters": params}
     if args.eps is not None:
-        eps = _number("eps", args.eps)
+        eps = _number("--eps", args.eps)
         out["eps"] = eps
         out["deviation"] = float(b.deviation(eps, **params))
-        if args.dps:
+        if args.dps is not None:
             out["deviation_mp"] = mpmath.nstr(b.deviation_mp(eps, dps=args.dps, **params), args.dps)
         if args.certified:
             enc = b.deviation_certified(eps, **params)
@@ -80,7 +79,7 @@ def _eval_run(args) -> int:
         dev = _number(b.deviation_parameter.name, args.deviation)
         out["deviation"] = dev
         out["eps"] = float(b.failure_probability(dev, **params))
-        if args.dps:
+        if args.dps is not None:
             out["eps_mp"] = mpmath.nstr(b.failure_probability_mp(dev, dps=args.dps, **params), args.dps)
         if args.certified:
             enc = b.failure_probability_certified(dev, **params)
@@ -89,7 +88,7 @@ def _eval_run(args) -> int:
     out["references"] = [str(r) for r in b.references]
     out["assumptions"] = list(b.assumptions)
     if args.json:
-        print(to_json(out))
+        print(to_json(json_document(out)))
         return 0
     print(f"{b.title}")
     rows = [[k, fmt(v)] for k, v in params.items()]

@@ -13,8 +13,8 @@ from .. import protocols
 from ..errors import InputError
 from ..files import read_toml
 from ..optimize.dispatch import scenario_from_dict
-from .keylength_cmd import render_ledger
-from .render import caution_block, fmt, table, to_json
+from .keylength_cmd import render_ledger, statistics_help
+from .render import caution_block, fmt, json_document, table, to_json
 
 __all__ = ["COMMAND", "load_scenario", "render_design", "render_reach", "status_line"]
 
@@ -29,7 +29,7 @@ def load_scenario(path):
 
 def _args(p: argparse.ArgumentParser) -> None:
     p.add_argument("scenario", nargs="?", default=None, help="scenario file (TOML); default: built-in scenario")
-    p.add_argument("--statistics", default=None, help="parameter-estimation statistics (default: the scenario's)")
+    p.add_argument("--statistics", default=None, help=statistics_help(design=True))
     p.add_argument("--reach", action="store_true", help="report the maximal distance (link scenarios only)")
     p.add_argument("--json", action="store_true", help="machine-readable output")
 
@@ -128,14 +128,14 @@ def _run(args) -> int:
             raise InputError("--reach", proto.name, "a link scenario (decoy-bb84); this protocol has no reach")
         out = reach(sc, args.statistics)
         if args.json:
-            print(to_json(out.to_dict()))
+            print(to_json(json_document(out.to_dict())))
         else:
             print(render_reach(out))
             print("\n" + caution_block())
         return 0
     d = proto.design(sc, args.statistics)
     if args.json:
-        print(to_json(d.to_dict()))
+        print(to_json(json_document(d.to_dict())))
         return 0
     print(render_design(d, args.scenario))
     print("\n" + caution_block())

@@ -15,15 +15,31 @@ from types import SimpleNamespace
 from .. import protocols
 from ..errors import InputError
 from ..files import read_records
-from .render import caution_block, fmt, table, to_json
+from .render import caution_block, fmt, json_document, table, to_json
 
 __all__ = ["COMMAND", "load_blocks", "render_key_result", "render_ledger"]
 
 
+def statistics_help(design: bool = False) -> str:
+    """Help text of ``--statistics``: each registered protocol's methods, its default first.
+
+    With ``design=True`` only the methods a protocol's design and block-size search support
+    (``design_statistics`` of the protocol object, when it declares one).
+    """
+    parts = []
+    for proto in protocols.all_protocols():
+        names = getattr(proto, "design_statistics", proto.statistics_methods) if design else proto.statistics_methods
+        methods = [proto.default_statistics] + [m for m in names if m != proto.default_statistics]
+        parts.append(f"{proto.name}: {methods[0]} (default), " + ", ".join(methods[1:]))
+    head = "parameter-estimation statistics, per protocol"
+    if design:
+        head += " (a bb84 scenario's [analysis] statistics is its default)"
+    return head + "; " + "; ".join(parts)
+
+
 def _args(p: argparse.ArgumentParser) -> None:
     p.add_argument("block", help="block file: .json (one block or a list), .jsonl or .csv (one block per line)")
-    p.add_argument("--statistics", default=None,
-                   help="parameter-estimation statistics (bb84: exact or serfling; default: the protocol's)")
+    p.add_argument("--statistics", default=None, help=statistics_help())
     p.add_argument("--json", action="store_true", help="machine-readable output (JSON; JSON Lines for a batch)")
     p.add_argument("--jobs", default="1", help="worker processes for a large batch (default 1; results identical)")
 
@@ -68,10 +84,12 @@ def _unit(name: str) -> str:
     return "count"
 
 
-def render_key_result(res) -> str:
-    """Human-readable rendering of a KeyLengthResult (protocol independent)."""
+def render_key_result(res, label: str | None = None) -> str:
+    """Human-readable rendering of a KeyLengthResult (protocol independent); ``label`` names the block."""
     rows = [["protocol", res.protocol, ""], ["statistics", res.statistics, ""],
             ["secret key length", res.secret_key_length, "bits"], ["status", res.status.text(), ""]]
+    if label is not None:
+        rows.insert(0, ["label", label, ""])
     for k, v in res.terms.items():
         rows.append([f"term: {k}", fmt(v), "bits"])
     for k, v in res.estimates.items():
@@ -113,10 +131,14 @@ def _run(args) -> int:
         i = j
     if not batch:
         res = results[0]
+        label = getattr(parsed[0][2], "label", None)
         if args.json:
-            print(to_json(res.to_dict()))
+            d = res.to_dict()
+            if label is not None:
+                d["label"] = label
+            print(to_json(json_document(d)))
         else:
-            print(render_key_result(res))
+            print(render_key_result(res, label))
             print("\n" + caution_block())
         return 0
     if args.json:
@@ -126,7 +148,7 @@ def _run(args) -> int:
             label = getattr(block, "label", None)
             if label is not None:
                 d["label"] = label
-            print(json.dumps(d, allow_nan=False, separators=(",", ":")))
+            print(json.dumps(json_document(d), allow_nan=False, separators=(",", ":")))
         return 0
     rows = []
     for (line, _, block), res in zip(parsed, results):

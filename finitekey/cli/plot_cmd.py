@@ -73,11 +73,13 @@ def _run(args) -> int:
     if args.kind == "ledger":
         proto = loaded.protocol_object()
         scenario = proto.parse_scenario(loaded.data)
-        for v in args.vary or []:  # a ledger plot may take single-valued --vary as overrides
-            from ..report.grid import parse_vary
-            axis = parse_vary(v, list(proto.scenario_fields()))
+        from ..report.grid import expand_grid, parse_vary
+
+        axes = [parse_vary(v, list(proto.scenario_fields())) for v in args.vary or []]
+        expand_grid(axes)  # refuses a field varied twice
+        for axis in axes:  # a ledger plot may take single-valued --vary as overrides
             if len(axis.values) != 1:
-                raise InputError("--vary", v, "a single value for --kind ledger (it plots one design)")
+                raise InputError("--vary", axis.text, "a single value for --kind ledger (it plots one design)")
             scenario = proto.with_field(scenario, axis.field, axis.values[0])
         row = _design_row(proto.design(scenario, statistics=args.statistics))
         fig = ledger_plot(row["ledger"], loaded.protocol, note=f"finitekey · input sha256 {loaded.sha256[:12]}",

@@ -23,6 +23,17 @@ def _default(o):
     raise TypeError(f"not JSON serialisable: {type(o).__name__}")
 
 
+def json_document(obj: dict) -> dict:
+    """Copy of the mapping ``obj`` with the caution of :mod:`finitekey.cautions` as its last field ``caution``.
+
+    Every JSON document a command prints goes through here, so that no machine-readable output lacks the
+    caution that the text outputs carry.
+    """
+    out = dict(obj)
+    out["caution"] = CAUTION
+    return out
+
+
 def to_json(obj) -> str:
     """JSON text; non-finite floats are refused so that no NaN reaches a consumer."""
     return json.dumps(obj, indent=2, default=_default, allow_nan=False)

@@ -1056,6 +1056,7 @@ class DecoyBB84:
 
     name = PROTOCOL_NAME
     statistics_methods = STATISTICS
+    design_statistics = DESIGN_STATISTICS
     default_statistics = DEFAULT_STATISTICS
 
     def parse_block(self, data: dict) -> DecoyBlock:

@@ -212,11 +212,12 @@ def expand_grid(axes: Sequence[Axis]) -> list:
     InputError
         If a field is varied twice or the grid has more than :data:`MAX_POINTS` points.
     """
-    seen = set()
+    seen = {}
     for ax in axes:
         if ax.field in seen:
-            raise InputError("--vary", ax.field, "each field varied at most once")
-        seen.add(ax.field)
+            raise InputError("--vary", ax.text, f"each field varied at most once ({ax.field} is already varied by "
+                                                f"--vary {seen[ax.field]})")
+        seen[ax.field] = ax.text
     total = 1
     for ax in axes:
         total *= len(ax.values)
