@@ -75,6 +75,7 @@ from ..errors import ComputationError, InputError
 from ..searching import golden_max, maximize_box, smallest_passing
 from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, FixedEfficiency, LeakageModel,
                               SecondOrderLeakage)
+from ._batch import map_in_chunks
 from ._block_rule import parse_closure
 from ._fields import read_label, security_fields_with, security_targets
 from ._registry import register
@@ -527,20 +528,7 @@ def key_length_batch(blocks, statistics=None, *, prec: int = 128, jobs: int = 1)
         computed in separate processes (each with its own caches) and joined in order, so the results are
         the same as with ``jobs = 1``.
     """
-    jobs = POSITIVE_COUNT.check("jobs", jobs)
-    blocks = list(blocks)
-    if jobs > 1 and len(blocks) >= _PARALLEL_MIN:
-        import concurrent.futures
-        import multiprocessing
-
-        size = -(-len(blocks) // jobs)
-        chunks = [blocks[i:i + size] for i in range(0, len(blocks), size)]
-        method = "fork" if "fork" in multiprocessing.get_all_start_methods() else None
-        with concurrent.futures.ProcessPoolExecutor(max_workers=jobs,
-                                                    mp_context=multiprocessing.get_context(method)) as pool:
-            parts = pool.map(_batch_chunk, chunks, [statistics] * len(chunks), [prec] * len(chunks))
-            return [r for part in parts for r in part]
-    return _batch_chunk(blocks, statistics, prec)
+    return map_in_chunks(_batch_chunk, blocks, jobs, _PARALLEL_MIN, (statistics, prec))
 
 
 #: Smallest batch worth splitting over processes (below it, process start-up costs more than it saves).
