@@ -141,7 +141,7 @@ def test_serfling_reproduces_2012_formula_term_by_term(n, k, e, leak):
 def test_exact_key_length_never_exceeds_formula(n, k, e, leak):
     # independent recomputation of the formula at 50 digits with mpmath, from the certified phase-error count
     res = key_length(block(key_bits=n, test_bits=k, test_errors=e, ec_leak_bits=leak), "exact")
-    E = res.estimates["phase_errors_upper"]
+    E = res.estimates["phase_error_count_upper"]
     with mpmath.workdps(50):
         val = (n * (1 - mp_h(mpmath.mpf(E) / n)) - leak - res.terms["verification_tag"]
                - 2 * mpmath.log(1 / (2 * mpmath.mpf(res.ledger.epsilon("privacy_amplification"))), 2))
@@ -155,7 +155,7 @@ def test_exact_at_least_serfling(n, k, e, leak):
     b = block(key_bits=n, test_bits=k, test_errors=e, ec_leak_bits=leak)
     ex, se = key_length(b, "exact"), key_length(b, "serfling")
     assert ex.secret_key_length >= se.secret_key_length
-    assert ex.estimates["phase_error_upper"] <= se.estimates["phase_error_upper"]
+    assert ex.estimates["phase_error_rate_upper"] <= se.estimates["phase_error_rate_upper"]
 
 
 def test_overlap_changes_min_entropy():
@@ -170,7 +170,7 @@ def test_overlap_changes_min_entropy():
 
 def test_key_zero_when_phase_error_bound_reaches_half():
     res = key_length(block(key_bits=1000, test_bits=100, test_errors=45, ec_leak_bits=0), "exact")
-    assert res.secret_key_length == 0 and res.estimates["phase_error_upper"] >= 0.5
+    assert res.secret_key_length == 0 and res.estimates["phase_error_rate_upper"] >= 0.5
 
 
 def test_verification_tag_is_exact_ceiling():

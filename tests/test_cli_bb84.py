@@ -38,7 +38,7 @@ def test_keylength_json_single(tmp_path, capsys):
     assert {t["name"] for t in d["ledger"]} >= {"error_verification", "smoothing", "privacy_amplification"}
     assert d["eps_total"] <= 1e-10 + 1e-15
     # Check the value against an independent mpmath evaluation of the formula from the reported phase errors.
-    E, n = d["estimates"]["phase_errors_upper"], BLOCK["key_bits"]
+    E, n = d["estimates"]["phase_error_count_upper"], BLOCK["key_bits"]
     with mpmath.workdps(40):
         phi = mpmath.mpf(E) / n
         h = -phi * mpmath.log(phi, 2) - (1 - phi) * mpmath.log(1 - phi, 2)

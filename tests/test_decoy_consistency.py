@@ -41,8 +41,9 @@ def test_review_blocks_get_no_key(blk, method):
     r = D.key_length(b, method)
     assert r.secret_key_length == 0
     assert r.estimates[NOTE] == 1.0
-    # the reason is stated
-    assert any("inconsistent with the decoy model" in a for a in r.assumptions)
+    # the reason is stated in the status (a rejection is not an assumption)
+    assert r.status.reason.value == "inconsistent_block" and r.status.detail
+    assert not any("inconsistent" in a for a in r.assumptions)
 
 
 def _model_block(perm):
@@ -67,7 +68,7 @@ def test_channel_block_in_the_right_order_keeps_its_key_and_permuted_ones_get_no
 def test_single_photon_error_bound_clamped_to_observed_errors():
     b = _model_block([0, 1, 2])
     r = D.key_length(b)
-    assert r.estimates["e1_test_errors_upper"] <= sum(b.test_errors)
+    assert r.estimates["single_photon_test_errors_upper"] <= sum(b.test_errors)
 
 
 _counts = st.integers(min_value=0, max_value=10**7)

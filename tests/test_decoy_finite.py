@@ -83,18 +83,18 @@ def test_hoeffding_reproduces_2014_formulas_term_by_term(L, N):
     r = D.key_length(b, "hoeffding")
     e = r.estimates
     # certified values are rounded outwards, so they lie within a relative 1e-12 of the reference, on the safe side
-    assert e["s1_lower"] == pytest.approx(float(ref["s1"]), rel=1e-10)
-    assert e["s1_lower"] <= float(ref["s1"]) * (1 + 1e-15)
-    assert e["s1_test_lower"] == pytest.approx(float(ref["s1z"]), rel=1e-10)
-    assert e["e1_test_errors_upper_formula"] == pytest.approx(float(ref["v1"]), rel=1e-10)
+    assert e["single_photon_key_detections_lower"] == pytest.approx(float(ref["s1"]), rel=1e-10)
+    assert e["single_photon_key_detections_lower"] <= float(ref["s1"]) * (1 + 1e-15)
+    assert e["single_photon_test_detections_lower"] == pytest.approx(float(ref["s1z"]), rel=1e-10)
+    assert e["single_photon_test_errors_upper_before_clipping"] == pytest.approx(float(ref["v1"]), rel=1e-10)
     # the bound used is clamped to the observed test errors (v1 <= m_Z), which keeps it valid
-    assert e["e1_test_errors_upper"] == pytest.approx(min(float(ref["v1"]), sum(b.test_errors)), rel=1e-10)
+    assert e["single_photon_test_errors_upper"] == pytest.approx(min(float(ref["v1"]), sum(b.test_errors)), rel=1e-10)
     assert e["sampling_term_2014_gamma"] == pytest.approx(float(ref["gamma"]), rel=1e-10)
     assert e["sampling_term_rigorous_mu"] == pytest.approx(float(ref["mu"]), rel=1e-10)
     assert e["sampling_term_rigorous_mu"] >= float(ref["mu"]) * (1 - 1e-15)
-    assert e["phase_error_upper"] == pytest.approx(float(ref["phi"]), rel=1e-10)
-    assert e["phase_error_upper"] >= float(ref["phi"]) * (1 - 1e-15)
-    assert e["s0_lower"] == pytest.approx(float(ref["s0"]), rel=1e-9, abs=1e-9)
+    assert e["phase_error_rate_upper"] == pytest.approx(float(ref["phi"]), rel=1e-10)
+    assert e["phase_error_rate_upper"] >= float(ref["phi"]) * (1 - 1e-15)
+    assert e["vacuum_key_detections_lower"] == pytest.approx(float(ref["s0"]), rel=1e-9, abs=1e-9)
     # the key length is the floor of the reference value (or one less from outward rounding)
     assert int(mpmath.floor(ref["ell"])) - 1 <= r.secret_key_length <= int(mpmath.floor(ref["ell"]))
     assert r.terms["chain_rule_penalty"] + r.terms["hash_penalty"] == pytest.approx(

@@ -80,10 +80,10 @@ def test_lp_bounds_contain_the_true_single_photon_values(mu, p):
     tau1 = sum(pk * m * math.exp(-m) for m, pk in zip(mu, p))
     v1_true = N * (1 - q) ** 2 * tau1 * float(MODEL.photon_error_yield(1))
     r = D.key_length(b)
-    assert "analysis: linear-programme" in r.assumptions
-    assert r.estimates["s1_lower"] <= s1_true
-    assert r.estimates["s1_lower"] > 0.6 * s1_true
-    assert r.estimates["e1_test_errors_upper"] >= v1_true
+    assert r.settings["analysis"] == "linear-programme" and not any("analysis:" in a for a in r.assumptions)
+    assert r.estimates["single_photon_key_detections_lower"] <= s1_true
+    assert r.estimates["single_photon_key_detections_lower"] > 0.6 * s1_true
+    assert r.estimates["single_photon_test_errors_upper"] >= v1_true
     assert r.secret_key_length > 0
 
 

@@ -61,17 +61,17 @@ def _rusca2018(b, eps):
 def test_two_intensity_formulas_term_by_term(L, N):
     b = _block(L, N)
     r = D.key_length(b, "hoeffding")
-    assert "analysis: two-intensity" in r.assumptions
+    assert r.settings["analysis"] == "two-intensity" and not any("analysis:" in a for a in r.assumptions)
     eps = r.ledger.epsilon("count_estimation")
     ref = _rusca2018(b, eps)
     e = r.estimates
-    assert e["s1_lower"] == pytest.approx(float(ref["s1"]), rel=1e-10)
-    assert e["s1_lower"] <= float(ref["s1"]) * (1 + 1e-15)
-    assert e["s1_test_lower"] == pytest.approx(float(ref["s1z"]), rel=1e-9)
-    assert e["e1_test_errors_upper_formula"] == pytest.approx(float(ref["v1"]), rel=1e-10)
+    assert e["single_photon_key_detections_lower"] == pytest.approx(float(ref["s1"]), rel=1e-10)
+    assert e["single_photon_key_detections_lower"] <= float(ref["s1"]) * (1 + 1e-15)
+    assert e["single_photon_test_detections_lower"] == pytest.approx(float(ref["s1z"]), rel=1e-9)
+    assert e["single_photon_test_errors_upper_before_clipping"] == pytest.approx(float(ref["v1"]), rel=1e-10)
     # the bound used is clamped to the observed test errors (v1 <= m_Z), which keeps it valid
-    assert e["e1_test_errors_upper"] == pytest.approx(min(float(ref["v1"]), sum(b.test_errors)), rel=1e-10)
-    assert e["s0_lower"] == pytest.approx(float(ref["s0"]), rel=1e-9, abs=1e-6)
+    assert e["single_photon_test_errors_upper"] == pytest.approx(min(float(ref["v1"]), sum(b.test_errors)), rel=1e-10)
+    assert e["vacuum_key_detections_lower"] == pytest.approx(float(ref["s0"]), rel=1e-9, abs=1e-6)
 
 
 @pytest.mark.parametrize("method", ["exact", "chernoff", "hoeffding"])
@@ -86,9 +86,9 @@ def test_two_intensity_bounds_contain_truth(method):
     s1_true = N * q * q * tau1 * float(m.photon_yield(1))
     v1_true = N * (1 - q) ** 2 * tau1 * float(m.photon_error_yield(1))
     r = D.key_length(b, method)
-    assert r.estimates["s0_lower"] <= s0_true
-    assert 0.8 * s1_true < r.estimates["s1_lower"] <= s1_true
-    assert r.estimates["e1_test_errors_upper"] >= v1_true
+    assert r.estimates["vacuum_key_detections_lower"] <= s0_true
+    assert 0.8 * s1_true < r.estimates["single_photon_key_detections_lower"] <= s1_true
+    assert r.estimates["single_photon_test_errors_upper"] >= v1_true
     assert r.secret_key_length > 0
     # the vacuum upper bound from error counts is above the truth too
     with np.errstate(all="ignore"):

@@ -370,3 +370,63 @@ def test_decoy_batch_equals_block_by_block(monkeypatch):
     assert [r.to_dict() for r in parallel] == [r.to_dict() for r in single]
     with pytest.raises(InputError):
         mod.key_length_batch(blocks, "nosuch")
+
+
+# --- every proof note an output cites is installed with the package ---------------------------------------------
+def _strings(obj):
+    if isinstance(obj, str):
+        yield obj
+    elif isinstance(obj, dict):
+        for v in obj.values():
+            yield from _strings(v)
+    elif isinstance(obj, (list, tuple)):
+        for v in obj:
+            yield from _strings(v)
+
+
+def test_cited_proof_notes_exist_in_the_installed_package(tmp_path, capsys):
+    import importlib.resources
+    import re
+
+    from finitekey import bounds
+
+    texts = []
+    for block in (BB84_BLOCK, DECOY_BLOCK, dict(BB84_BLOCK, ec_efficiency=1.1, key_qber=0.02, ec_leak_bits=None)):
+        block = {k: v for k, v in block.items() if v is not None}
+        proto = protocols.get(block["protocol"])
+        texts += list(_strings(proto.key_length(proto.parse_block(block)).to_dict()))
+    for proto in protocols.all_protocols():
+        texts += list(_strings(proto.design(proto.default_scenario()).to_dict()))
+    for b in bounds.all_bounds():
+        texts += list(_strings(b.describe()))
+    joined = "\n".join(texts)
+    assert "proofs_notes/" not in joined  # the source tree's folder is not installed; cite finitekey/_notes/
+    cited = set(re.findall(r"finitekey/_notes/([\w/]+\.md)", joined))
+    assert "reconciliation.md" in cited  # at least the decoy assumptions cite notes
+    root = importlib.resources.files("finitekey")
+    for rel in sorted(cited):
+        assert root.joinpath("_notes", *rel.split("/")).is_file(), rel
+    # every protocol and bound module has its note in the package
+    for proto in protocols.all_protocols():
+        assert root.joinpath("_notes", "protocols", proto.name.replace("-", "_") + ".md").is_file(), proto.name
+
+
+# --- result names: estimates say what they bound; settings are not assumptions ----------------------------------
+def test_estimate_names_are_distinct_and_settings_are_separate(tmp_path, capsys):
+    dec = protocols.get("decoy-bb84")
+    r = dec.key_length(dec.parse_block(DECOY_BLOCK))
+    assert r.settings == {"analysis": "three-intensity"}
+    assert not any(a.startswith("analysis") for a in r.assumptions)
+    assert {"vacuum_key_detections_lower", "single_photon_key_detections_lower",
+            "single_photon_test_detections_lower", "single_photon_test_errors_upper",
+            "phase_error_rate_upper"} <= set(r.estimates)
+    assert not {"s0_lower", "s1_lower", "s1_test_lower", "e1_test_errors_upper"} & set(r.estimates)
+    bb = protocols.get("bb84")
+    rb = bb.key_length(bb.parse_block(BB84_BLOCK))
+    assert {"phase_error_count_upper", "phase_error_rate_upper"} <= set(rb.estimates)
+    # the count and the rate agree: rate = count / key_bits (the exact statistics bound the count)
+    assert rb.estimates["phase_error_rate_upper"] == rb.estimates["phase_error_count_upper"] / BB84_BLOCK["key_bits"]
+    assert r.to_dict()["settings"] == {"analysis": "three-intensity"}
+    path = write(tmp_path, "d.json", json.dumps(DECOY_BLOCK))
+    rc, out, _ = run(capsys, ["keylength", path])
+    assert rc == 0 and "setting: analysis" in out and "three-intensity" in out

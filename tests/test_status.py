@@ -96,7 +96,7 @@ def test_bb84_stream_line_4_leakage_exceeds_the_entropy():
     r = B.key_length(_bb84(test_errors=5600, ec_leak_bits=560000))
     assert r.secret_key_length == 0
     assert r.status.reason is NoKeyReason.PENALTIES_EXCEED_ENTROPY
-    phi = r.estimates["phase_error_upper"]
+    phi = r.estimates["phase_error_rate_upper"]
     assert phi < 0.5
     # outside check: n (1 - h(phi)) with scipy's entropy is below the disclosed bits alone
     assert 1e6 * (1 - h2(phi)) < 560000
@@ -161,8 +161,8 @@ def test_decoy_phase_error_at_half():
                [400000, 15000, 200], [200000, 7500, 100], leak=415200)
     r = D.key_length(b)
     assert r.secret_key_length == 0
-    assert r.estimates["s1_lower"] >= 1 and r.estimates["s1_test_lower"] >= 1
-    assert r.estimates["phase_error_upper"] >= 0.5
+    assert r.estimates["single_photon_key_detections_lower"] >= 1 and r.estimates["single_photon_test_detections_lower"] >= 1
+    assert r.estimates["phase_error_rate_upper"] >= 0.5
     assert r.status.reason is NoKeyReason.PHASE_ERROR_BOUND
 
 

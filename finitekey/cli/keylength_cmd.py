@@ -77,7 +77,7 @@ def render_ledger(ledger) -> str:
 def _unit(name: str) -> str:
     if "failure" in name:
         return "probability"
-    if "rate" in name or "qber" in name or name in ("phase_error_upper", "mu", "phi", "e1_upper"):
+    if "rate" in name or "qber" in name or name in ("mu", "phi"):
         return "fraction"
     if name.startswith("note"):
         return "flag"
@@ -90,6 +90,8 @@ def render_key_result(res, label: str | None = None) -> str:
             ["secret key length", res.secret_key_length, "bits"], ["status", res.status.text(), ""]]
     if label is not None:
         rows.insert(0, ["label", label, ""])
+    for k, v in getattr(res, "settings", {}).items():
+        rows.append([f"setting: {k}", str(v), ""])
     for k, v in res.terms.items():
         rows.append([f"term: {k}", fmt(v), "bits"])
     for k, v in res.estimates.items():

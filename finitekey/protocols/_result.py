@@ -149,11 +149,13 @@ class KeyLengthResult:
     terms : dict of str to float
         Each term of the key-length formula, in bits.
     estimates : dict of str to float
-        Estimated quantities the terms use (e.g. ``phase_error_upper``).
+        Estimated quantities the terms use (e.g. ``phase_error_rate_upper``).
     formula : str
         LaTeX of the key-length formula.
     references : tuple of str
         Published sources of the analysis.
+    settings : dict of str to str
+        Choices the analysis made that are not assumptions (e.g. ``{"analysis": "three-intensity"}``).
     status : Status
         Key, or no key with the reason the analysis found.  When not given: key for a positive length,
         else :attr:`NoKeyReason.BELOW_ONE_BIT`.  A status that contradicts the length is refused.
@@ -169,6 +171,7 @@ class KeyLengthResult:
     formula: str = ""
     references: tuple = ()
     status: Status | None = None
+    settings: dict = field(default_factory=dict)
 
     def __post_init__(self):
         has_key = self.secret_key_length > 0
@@ -204,6 +207,7 @@ class KeyLengthResult:
             "formula": self.formula,
             "references": list(self.references),
             "status": self.status.to_dict(),
+            "settings": dict(self.settings),
         }
 
 

@@ -472,7 +472,7 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
             ball = comp["serfling"].certified(n, k, e, c, leak, tag, eps_s, eps_pa, prec=prec) if usable else None
         else:
             E = phase_errors_upper_exact(n, k, e, eps_pe, cache)
-            estimates["phase_errors_upper"] = E
+            estimates["phase_error_count_upper"] = E
             phi_up = E / n
             usable = 2 * E < n
             if usable:
@@ -480,7 +480,7 @@ def key_length(block: BB84Block, statistics=None, *, prec: int = 128, _cache: di
                         else comp["exact0"].certified(n, c, leak, tag, eps_pa, prec=prec))
             else:
                 ball = None
-    estimates["phase_error_upper"] = phi_up
+    estimates["phase_error_rate_upper"] = phi_up
     length = _floor_lower(ball) if ball is not None else 0
     phi_f = min(phi_up, 0.5)
     hmin = float(comp["hmin"].numpy(n, phi_f, c)) if phi_f > 0 else n * math.log2(1 / c)

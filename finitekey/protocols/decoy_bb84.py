@@ -111,12 +111,13 @@ ASSUMPTIONS = (
     "Bob's detection probability and basis choice do not depend on the basis (no efficiency mismatch); "
     "threshold detectors with double clicks assigned a random bit",
     "fixed-length protocol analysed as in the 2014 proof: the estimation failure events are charged once "
-    "each to eps_sec (see the proof note for what this assumes about conditioning on acceptance)",
+    "each to eps_sec (see the proof note finitekey/_notes/protocols/decoy_bb84.md for what this assumes about "
+    "conditioning on acceptance)",
     BLOCK_RULE_ASSUMPTION,
     "the single-photon key and test detections form a uniformly random split of all single-photon detections "
     "(basis chosen independently of the photon number and of the adversary)",
     "ec_leak_bits bounds what error correction can disclose: for interactive or rate-adaptive codes, the "
-    "maximum over all runs, not the count of one run (proofs_notes/reconciliation.md)",
+    "maximum over all runs, not the count of one run (proof note finitekey/_notes/reconciliation.md)",
 )
 
 #: Added to the references and assumptions of results computed with statistics="kato".
@@ -547,11 +548,11 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
 
     bad = []
     if pos(est["s0"]) + pos(est["s1"]) > n_x:
-        bad.append("s0_lower + s1_lower > key-basis detections")
+        bad.append("vacuum_key_detections_lower + single_photon_key_detections_lower > key-basis detections")
     if "s0z" in est and pos(est["s0z"]) + pos(est["s1z"]) > n_z or pos(est["s1z"]) > n_z:
-        bad.append("s0_test_lower + s1_test_lower > test-basis detections")
+        bad.append("vacuum_test_detections_lower + single_photon_test_detections_lower > test-basis detections")
     if A.ceil_arb(est["v1"]) < 0:
-        bad.append("e1_test_errors_upper < 0")
+        bad.append("single_photon_test_errors_upper < 0")
     # A vacuum detection is an error with probability 1/2 whatever the adversary does, so far fewer errors
     # than half the vacuum lower bound cannot come from the model.  This only rejects (key 0), which is
     # always safe; the threshold uses Hoeffding's deviation at eps_sec over at most n detections.
@@ -742,15 +743,17 @@ def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResul
              "ec_leakage": float(block.ec_leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
              "hash_penalty": A.ceil_arb(pa), "verification_tag": A.ceil_arb(tag),
              "key_length_lower_bound": A.floor_arb(total)}
-    estimates = {"s0_lower": A.floor_arb(est["s0"]), "s1_lower": A.floor_arb(est["s1"]),
-                 "s1_test_lower": A.floor_arb(est["s1z"]), "e1_test_errors_upper": A.ceil_arb(est["v1"]),
-                 "e1_test_errors_upper_formula": A.ceil_arb(est["v1_formula"]),
-                 "phase_error_upper": A.ceil_arb(phi), **extra}
+    estimates = {"vacuum_key_detections_lower": A.floor_arb(est["s0"]),
+                 "single_photon_key_detections_lower": A.floor_arb(est["s1"]),
+                 "single_photon_test_detections_lower": A.floor_arb(est["s1z"]),
+                 "single_photon_test_errors_upper": A.ceil_arb(est["v1"]),
+                 "single_photon_test_errors_upper_before_clipping": A.ceil_arb(est["v1_formula"]),
+                 "phase_error_rate_upper": A.ceil_arb(phi), **extra}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
-        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",) + _kato_extra(method, KATO_ASSUMPTION), terms=terms,
+        assumptions=ASSUMPTIONS + _kato_extra(method, KATO_ASSUMPTION), terms=terms,
         estimates=estimates, formula=FORMULA, references=REFERENCES + _kato_extra(method, KATO_REFERENCE),
-        status=_key_status(length, terms, estimates))
+        status=_key_status(length, terms, estimates), settings={"analysis": analysis})
 
 
 def _key_status(length: int, terms: dict, estimates: dict) -> Status:
@@ -758,13 +761,13 @@ def _key_status(length: int, terms: dict, estimates: dict) -> Status:
     leakage and penalties exceeding the vacuum and single-photon bits."""
     if length > 0:
         return KEY
-    s1, s1z = estimates["s1_lower"], estimates["s1_test_lower"]
+    s1, s1z = estimates["single_photon_key_detections_lower"], estimates["single_photon_test_detections_lower"]
     if not (s1 >= 1 and s1z >= 1):
         return Status.no_key(NoKeyReason.NO_SINGLE_PHOTON_BOUND, f"single-photon lower bounds: key basis "
                                                                  f"{s1:.6g}, test basis {s1z:.6g}")
-    if estimates["phase_error_upper"] >= 0.5:
+    if estimates["phase_error_rate_upper"] >= 0.5:
         return Status.no_key(NoKeyReason.PHASE_ERROR_BOUND, f"single-photon phase-error upper bound "
-                                                            f"{estimates['phase_error_upper']:.4g} >= 1/2")
+                                                            f"{estimates['phase_error_rate_upper']:.4g} >= 1/2")
     gain = terms["vacuum_bits"] + terms["single_photon_bits"]
     cost = terms["ec_leakage"] + terms["chain_rule_penalty"] + terms["hash_penalty"] + terms["verification_tag"]
     detail = (f"vacuum {terms['vacuum_bits']:.6g} + single-photon {terms['single_photon_bits']:.6g} bits "
@@ -812,17 +815,17 @@ def _kato_extra(method: str, text: str) -> tuple:
 
 def _inconsistent_result(block, method, analysis, ledger, est, violations) -> KeyLengthResult:
     """Zero key for a block whose decoy bounds contradict its own totals (see :func:`_physical_check`)."""
-    estimates = {"s0_lower": A.floor_arb(est["s0"]), "s1_lower": A.floor_arb(est["s1"]),
-                 "s1_test_lower": A.floor_arb(est["s1z"]), "e1_test_errors_upper": A.ceil_arb(est["v1"]),
-                 "phase_error_upper": 0.5, "note_block_inconsistent_with_decoy_model": 1.0}
+    estimates = {"vacuum_key_detections_lower": A.floor_arb(est["s0"]),
+                 "single_photon_key_detections_lower": A.floor_arb(est["s1"]),
+                 "single_photon_test_detections_lower": A.floor_arb(est["s1z"]),
+                 "single_photon_test_errors_upper": A.ceil_arb(est["v1"]),
+                 "phase_error_rate_upper": 0.5, "note_block_inconsistent_with_decoy_model": 1.0}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=0, ledger=ledger, statistics=method,
-        assumptions=ASSUMPTIONS + (f"analysis: {analysis}",
-                                   "block rejected, inconsistent with the decoy model: " + "; ".join(violations))
-        + _kato_extra(method, KATO_ASSUMPTION),
+        assumptions=ASSUMPTIONS + _kato_extra(method, KATO_ASSUMPTION),
         terms={"key_length_lower_bound": 0.0}, estimates=estimates, formula=FORMULA,
         references=REFERENCES + _kato_extra(method, KATO_REFERENCE),
-        status=Status.no_key(NoKeyReason.INCONSISTENT_BLOCK, "; ".join(violations)))
+        status=Status.no_key(NoKeyReason.INCONSISTENT_BLOCK, "; ".join(violations)), settings={"analysis": analysis})
 
 
 #: The exact binomial tails accept at most this many trials (finitekey.bounds.binomial_exact).
