@@ -179,7 +179,8 @@ def _fmt(x: float) -> str:
         return "inf" if x > 0 else "-inf"
     if float(x).is_integer() and abs(x) < 1e15:
         return str(int(x))
-    return repr(float(x))
+    short = f"{float(x):g}"  # 1e15 reads "1e+15", not "1000000000000000.0"; used only when exact
+    return short if float(short) == float(x) else repr(float(x))
 
 
 PROBABILITY = Domain(0.0, 1.0, lower_open=True, upper_open=True)
