@@ -15,7 +15,7 @@ The checks below are our own seeded Monte Carlo simulations of that idea (proofs
   a filled basis are dropped); the valid rule keeps every sifted round of a number of rounds fixed before.
 
 The phase-error bound checked is finitekey's BB84 exact statistics, from the public API
-(``bb84.key_length(...).estimates["phase_errors_upper"]`` at the claimed failure probability, and
+(``bb84.key_length(...).estimates["phase_error_count_upper"]`` at the claimed failure probability, and
 ``finitekey.bounds.hypergeometric_exact.key_errors_upper_certified`` at a loose epsilon).  A failure is a
 trial whose true number of phase errors among the key bits exceeds the bound.
 
@@ -81,7 +81,7 @@ def tool_bound(n: int, k: int, e: int):
     """finitekey's exact phase-error bound and its claimed failure probability, through the block API."""
     res = bb84.key_length(bb84.parse_block({"key_bits": n, "test_bits": k, "test_errors": e, "ec_leak_bits": 0,
                                             "eps_sec": EPS_SEC, "eps_cor": 1e-15}))
-    return res.estimates["phase_errors_upper"], res.estimates["parameter_estimation_failure"]
+    return res.estimates["phase_error_count_upper"], res.estimates["parameter_estimation_failure"]
 
 
 def trial(rng, key_pos, test_pos, window=WINDOW, attacked=ATTACKED, baseline=BASELINE):
