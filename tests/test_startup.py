@@ -87,7 +87,7 @@ def test_unknown_subcommand_is_rejected_with_the_choices(capsys):
         cli.main(["keylenght", "x.json"])
     assert exc.value.code == 2
     err = capsys.readouterr().err
-    assert "invalid choice" in err and "keylength" in err
+    assert "'keylenght' is not allowed" in err and "keylength" in err and len(err.strip().splitlines()) == 1
 
 
 def test_python_dash_m_finitekey_runs_the_cli():
