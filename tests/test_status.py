@@ -76,8 +76,8 @@ def test_status_refuses_to_contradict_the_length():
 
 def test_status_json_and_text():
     s = Status.no_key(NoKeyReason.PHASE_ERROR_BOUND, "phi = 0.6")
-    assert s.to_dict() == {"key": False, "reason": "phase_error_bound", "reason_text": NoKeyReason.PHASE_ERROR_BOUND.text,
-                           "detail": "phi = 0.6"}
+    assert s.to_dict() == {"key": False, "reason": "phase_error_bound",
+                           "reason_text": NoKeyReason.PHASE_ERROR_BOUND.text, "detail": "phi = 0.6"}
     assert s.text().startswith("no key: ") and s.text().endswith("; phi = 0.6")
     assert KEY.to_dict()["key"] is True and KEY.text() == "key"
 

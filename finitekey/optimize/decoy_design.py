@@ -534,7 +534,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     # block that met the target (a continuation path in the block size), or upwards until one does
     top = math.log10(max_pulses)
     x = min(math.log10(scenario.pulses), top)
-    ok, res_hi, th_hi = meets(10 ** x)
+    ok, _, th_hi = meets(10 ** x)
     if ok:
         hi = lo = x
         while lo > 3.0:
@@ -542,14 +542,14 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
             ok, res, th = meets(10 ** lo, th_hi)
             if not ok:
                 break
-            hi, res_hi, th_hi = lo, res, th
+            hi, th_hi = lo, th
     else:
         lo = x
         while True:
             if lo >= top:
                 raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
             hi = min(lo + 0.5, top)
-            ok, res_hi, th_hi = meets(10 ** hi)
+            ok, _, th_hi = meets(10 ** hi)
             if ok:
                 break
             lo = hi
@@ -557,7 +557,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
         mid = 0.5 * (lo + hi)
         ok, res, th = meets(10 ** mid, th_hi)
         if ok:
-            hi, res_hi, th_hi = mid, res, th
+            hi, th_hi = mid, th
         else:
             lo = mid
     # the size reported is a whole number of pulses, and the design shown (and its echo) is the one at it
