@@ -272,7 +272,7 @@ def allocate(eps_sec: float, eps_cor: float, specs: Sequence[TermSpec],
     -------
     Ledger
         Each split secrecy epsilon is ``(eps_sec - pinned) * fraction / weight``, rounded down so that the
-        weighted sum never exceeds ``eps_sec``.
+        weighted sum never exceeds ``eps_sec`` (checked in exact rational arithmetic).
 
     Raises
     ------
@@ -318,9 +318,17 @@ def allocate(eps_sec: float, eps_cor: float, specs: Sequence[TermSpec],
             eps = _down(budget * fr[s.name] / total / s.weight)
         terms.append(LedgerTerm(s.name, eps, s.role, s.charge, s.multiplicity, s.description))
     ledger = Ledger(tuple(terms))
-    # Rounding guard: shrink the split terms until the weighted sum is within the target.
+    # Rounding guard: shrink the split terms until the weighted sum is within the target, compared in exact
+    # rationals (the float sum of the rounded products weight * epsilon can sit below an exact sum that
+    # exceeds eps_sec by a fraction of an ulp).
     split_names = set(names)
-    while ledger.eps_sec > eps_sec:
+    while _exact_secrecy(ledger) > Fraction(eps_sec):
         ledger = Ledger(tuple(replace(t, epsilon=_down(t.epsilon)) if t.name in split_names else t
                               for t in ledger.terms))
     return ledger
+
+
+def _exact_secrecy(ledger: Ledger) -> Fraction:
+    """The secrecy sum ``sum weight * epsilon`` in exact rational arithmetic."""
+    return sum((Fraction(t.weight) * Fraction(t.epsilon) for t in ledger.terms if t.role is Role.SECRECY),
+               Fraction(0))

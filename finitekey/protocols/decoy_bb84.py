@@ -737,7 +737,9 @@ def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResul
         leak = arb(block.ec_leak_bits)
         single = s1 * (1 - h)
         total = s0 + single - leak - chain - pa - tag
-    lower = float(total.lower())
+    # A float certainly below the ball (float(total.lower()) would round to nearest whenever the caller's
+    # flint precision exceeds 53 bits, and could land on the integer just above the lower end).
+    lower = A.floor_arb(total) if total.is_finite() else -math.inf
     length = max(0, int(math.floor(lower))) if math.isfinite(lower) else 0
     terms = {"vacuum_bits": A.floor_arb(s0), "single_photon_bits": A.floor_arb(single),
              "ec_leakage": float(block.ec_leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
