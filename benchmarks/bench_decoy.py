@@ -1,29 +1,29 @@
 """Decoy-state BB84 benchmark: design speed vs differential evolution, sweep time, tightness and reach.
 
 Run: ``python benchmarks/bench_decoy.py``.  Prints figures measured side by side in one run; not a test (the
-machine is shared and noisy).  BLAS is pinned to one thread before numpy loads: the optimiser's linear
-algebra is tiny, and on a shared 2-core machine multi-threaded BLAS spin-waits made single L-BFGS-B steps
-take milliseconds.
+machine is shared and noisy).  The optimiser's linear algebra is tiny, and on a shared 2-core machine
+multi-threaded BLAS spin-waits made single L-BFGS-B steps take milliseconds: the protocol's ``design``,
+``blocksize`` and ``reach`` therefore run with one BLAS thread (finitekey/_threads.py).  The module-level
+functions timed below get the same limit from this script; the first lines compare the public call with the
+module function left at the default BLAS threads.
 
 Link ("tightness link"): 0.2 dB/km, detector efficiency 10%, dark-count probability 6e-7, misalignment
 0.5%, no afterpulsing, f = 1.16, eps_sec = 1e-10, eps_cor = 1e-15, weakest intensity 2e-4 (common practice,
 no source).
 """
 
-import os
+import statistics
+import time
 import warnings
 
-os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
-os.environ.setdefault("OMP_NUM_THREADS", "1")
+import numpy as np
+from scipy import optimize
+from threadpoolctl import threadpool_info
 
-import statistics  # noqa: E402
-import time  # noqa: E402
-
-import numpy as np  # noqa: E402
-from scipy import optimize  # noqa: E402
-
-from finitekey.optimize import decoy_design as DD  # noqa: E402
-from finitekey.protocols import decoy_bb84 as D  # noqa: E402
+from finitekey import protocols
+from finitekey._threads import one_blas_thread
+from finitekey.optimize import decoy_design as DD
+from finitekey.protocols import decoy_bb84 as D
 
 
 def scenario(L, N):
@@ -41,11 +41,29 @@ def timed(fn, repeat):
     return statistics.median(times), out
 
 
+def api_versus_default_threads(sc):
+    """The public call (one BLAS thread inside) against the module function at the default BLAS threads."""
+    proto = protocols.get(D.PROTOCOL_NAME)
+    threads = sorted({i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"})
+    for stat in ("hoeffding", "exact"):
+        t_api, _ = timed(lambda: proto.design(sc, stat), 7)
+        t_free, _ = timed(lambda: DD.design(sc, stat), 7)
+        print(f"[{stat}] design from Python: protocols.get(...).design {t_api * 1e3:.1f} ms; the same search at the "
+              f"default BLAS threads {threads}: {t_free * 1e3:.1f} ms; ratio {t_free / t_api:.1f}x")
+
+
 def main():
     warnings.simplefilter("ignore", UserWarning)  # DE notes that vectorized=True implies deferred updating
     print("== decoy-state BB84 benchmark (one run) ==")
     sc = scenario(100.0, 1e10)
     DD.design(sc)  # warm-up (imports, caches)
+    api_versus_default_threads(sc)
+    with one_blas_thread():
+        module_level_figures(sc)
+
+
+def module_level_figures(sc):
+    """Speed against differential evolution, sweep time, tightness and reach (run with one BLAS thread)."""
     for stat in ("exact", "hoeffding"):
         prob = DD.objective_problem(sc, stat)
         t_opt, res = timed(lambda: DD.design(sc, stat), 7)

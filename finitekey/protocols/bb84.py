@@ -66,6 +66,7 @@ import sympy as sp
 from flint import arb, ctx
 
 from .. import bounds as _bounds
+from .._threads import with_one_blas_thread
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
 from ..budget import Charge, Ledger, Role, TermSpec, allocate, squared_down
 from ..compile import compile_expression
@@ -974,9 +975,20 @@ class BB84:
     parse_scenario = staticmethod(parse_scenario)
     scenario_fields = staticmethod(scenario_fields)
     with_field = staticmethod(with_field)
-    design = staticmethod(design)
-    blocksize = staticmethod(blocksize)
     asymptotic_rate = staticmethod(asymptotic_rate)
+
+    # The entry points for callers run with one BLAS thread (restored afterwards); see finitekey/_threads.py.
+    @staticmethod
+    @with_one_blas_thread
+    def design(scenario, statistics=None, **options):
+        """:func:`finitekey.protocols.bb84.design` with one BLAS thread (see there for the parameters)."""
+        return design(scenario, statistics, **options)
+
+    @staticmethod
+    @with_one_blas_thread
+    def blocksize(scenario, target, statistics=None, **options):
+        """:func:`finitekey.protocols.bb84.blocksize` with one BLAS thread (see there for the parameters)."""
+        return blocksize(scenario, target, statistics, **options)
 
     @staticmethod
     def key_length(block, statistics=None):

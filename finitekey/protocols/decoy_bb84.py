@@ -61,6 +61,7 @@ from dataclasses import asdict, dataclass, replace
 import numpy as np
 from flint import arb, ctx
 
+from .._threads import with_one_blas_thread
 from ..budget import Charge, Ledger, LedgerTerm, Role, TermSpec, allocate
 from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
@@ -1112,14 +1113,18 @@ class DecoyBB84:
     def default_scenario(self) -> DecoyScenario:
         return default_scenario()
 
+    # The entry points for callers run with one BLAS thread (restored afterwards); see finitekey/_threads.py.
+    @with_one_blas_thread
     def design(self, scenario: DecoyScenario, statistics: str | None = None) -> DesignResult:
         from ..optimize import decoy_design  # optimisation sits above protocols; imported on use
         return decoy_design.design(scenario, _check_design_statistics(statistics))
 
+    @with_one_blas_thread
     def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None):
         from ..optimize import decoy_design
         return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics))
 
+    @with_one_blas_thread
     def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> ReachResult:
         from ..optimize import decoy_design
         return decoy_design.reach(scenario, _check_design_statistics(statistics))
