@@ -4,20 +4,33 @@ A ``.json`` file holds one block (an object) or a list of blocks; ``.jsonl``/``.
 block per line.  Each block names its protocol (``"protocol": "bb84"`` or ``"decoy-bb84"``) and is dispatched
 through the protocol registry.  With ``--json`` a single block gives one JSON document and a batch gives JSON
 Lines (one result per input line); otherwise a table.  A bad line fails the run with an error naming the line.
+``--compact`` (implies ``--json``) leaves out the text that is the same for every block of a protocol.
+
+``BLOCK = -`` reads a stream of JSON Lines from standard input and answers each non-empty line with one JSON
+line on standard output, flushed at once, so that a post-processing stack can keep one process open and read
+each answer before sending the next block.  A bad line does not stop the stream: it is answered with one
+``{"line": N, "error": ..., "field": ..., "allowed": ...}`` line (the same message also goes to standard
+error), and the exit status at the end of the input is 2 if any line was bad (3 if a computation failed on
+an otherwise valid line), else 0.  Blank lines are skipped without an answer.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import sys
 from types import SimpleNamespace
 
 from .. import protocols
-from ..errors import InputError
+from ..errors import ComputationError, InputError
 from ..files import read_records
 from .render import caution_block, fmt, json_document, table, to_json
 
-__all__ = ["COMMAND", "load_blocks", "render_key_result", "render_ledger"]
+__all__ = ["COMMAND", "load_blocks", "render_key_result", "render_ledger", "compact", "COMPACT_OMITS", "stream"]
+
+#: Fields of a key-length result's JSON that ``--compact`` leaves out: text repeated unchanged for every block of
+#: a protocol (about two thirds of a BB84 line).  Everything else stays, including fields added later.
+COMPACT_OMITS = ("assumptions", "formula", "references")
 
 
 def statistics_help(design: bool = False) -> str:
@@ -38,10 +51,39 @@ def statistics_help(design: bool = False) -> str:
 
 
 def _args(p: argparse.ArgumentParser) -> None:
-    p.add_argument("block", help="block file: .json (one block or a list), .jsonl or .csv (one block per line)")
+    p.add_argument("block", help="block file: .json (one block or a list), .jsonl or .csv (one block per line); "
+                                 "'-' reads JSON Lines from standard input and answers each line at once")
     p.add_argument("--statistics", default=None, help=statistics_help())
     p.add_argument("--json", action="store_true", help="machine-readable output (JSON; JSON Lines for a batch)")
+    p.add_argument("--compact", action="store_true",
+                   help="JSON without the assumptions, formula, references and ledger descriptions, which repeat "
+                        "for every block (implies --json)")
     p.add_argument("--jobs", default="1", help="worker processes for a large batch (default 1; results identical)")
+
+
+def compact(d: dict) -> dict:
+    """The compact form of a key-length result's JSON dictionary (``--compact``).
+
+    Parameters
+    ----------
+    d : dict
+        ``KeyLengthResult.to_dict()``.
+
+    Returns
+    -------
+    dict
+        A copy without :data:`COMPACT_OMITS` and without the ledger terms' descriptions; the key length, the
+        epsilon sums, the ledger's numbers, terms, estimates and any status fields are kept.
+    """
+    out = {k: v for k, v in d.items() if k not in COMPACT_OMITS}
+    if isinstance(out.get("ledger"), list):
+        out["ledger"] = [{k: v for k, v in t.items() if k != "description"} for t in out["ledger"]]
+    return out
+
+
+def _result_dict(res, args) -> dict:
+    d = res.to_dict()
+    return compact(d) if getattr(args, "compact", False) else d
 
 
 #: Blocks come from :func:`finitekey.files.read_records` (single JSON, JSON list, JSON Lines or CSV).
@@ -102,6 +144,70 @@ def render_key_result(res, label: str | None = None) -> str:
     return "\n".join(parts)
 
 
+def _line_result(line: int, text: str, statistics, compact_output: bool) -> dict:
+    """Answer to one line of a stream: the result, or raise InputError / ComputationError naming the line."""
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        shown = text.strip() if len(text.strip()) <= 60 else text.strip()[:57] + "..."
+        raise InputError(f"line {line}: block", shown,
+                         f"one JSON object per line ({exc.msg} at column {exc.colno})") from None
+    proto, block = _parse(line, data)
+    try:
+        res = proto.key_length(block, statistics)
+    except InputError as exc:
+        raise _at(line, exc) from None
+    d = compact(res.to_dict()) if compact_output else res.to_dict()
+    d["line"] = line
+    label = getattr(block, "label", None)
+    if label is not None:
+        d["label"] = label
+    return json_document(d)
+
+
+def stream(lines, out, err, statistics=None, compact_output: bool = False) -> int:
+    """Answer a stream of JSON Lines blocks one by one (``finitekey keylength -``).
+
+    Parameters
+    ----------
+    lines : iterable of str
+        Input lines (e.g. ``iter(sys.stdin.readline, "")``); blank lines are skipped.
+    out, err : text streams
+        One JSON line per non-empty input line goes to ``out``, flushed after each; error messages also go to
+        ``err``.
+    statistics : str, optional
+        Statistics method for every block (default: each block's or the protocol's).
+    compact_output : bool
+        Write the :func:`compact` form.
+
+    Returns
+    -------
+    int
+        Exit status: 0 if every line gave a result, 2 if any line was bad input, else 3 if a computation failed.
+    """
+    status = 0
+    for number, text in enumerate(lines, start=1):
+        if not text.strip():
+            continue
+        try:
+            answer = json.dumps(_line_result(number, text, statistics, compact_output), allow_nan=False,
+                                separators=(",", ":"))
+        except InputError as exc:
+            field = exc.field.split(": ", 1)[1] if exc.field.startswith(f"line {number}: ") else exc.field
+            answer = json.dumps({"line": number, "error": str(exc), "field": field, "allowed": exc.allowed},
+                                separators=(",", ":"))
+            print(f"finitekey keylength: error: {exc}", file=err, flush=True)
+            status = 2
+        except ComputationError as exc:
+            answer = json.dumps({"line": number, "error": f"line {number}: computation failed: {exc}"},
+                                separators=(",", ":"))
+            print(f"finitekey keylength: line {number}: computation failed: {exc}", file=err, flush=True)
+            status = status or 3
+        out.write(answer + "\n")
+        out.flush()
+    return status
+
+
 def _run(args) -> int:
     try:
         jobs = int(args.jobs)
@@ -109,6 +215,12 @@ def _run(args) -> int:
         raise InputError("--jobs", args.jobs, "a whole number of worker processes >= 1") from None
     if jobs < 1:
         raise InputError("--jobs", args.jobs, "a whole number of worker processes >= 1")
+    if args.compact:
+        args.json = True
+    if args.block == "-":
+        if jobs != 1:
+            raise InputError("--jobs", args.jobs, "1 when blocks are read from standard input (one at a time)")
+        return stream(iter(sys.stdin.readline, ""), sys.stdout, sys.stderr, args.statistics, args.compact)
     records, batch = load_blocks(args.block)
     if not records:
         raise InputError("block", args.block, "a file with at least one block")
@@ -135,7 +247,7 @@ def _run(args) -> int:
         res = results[0]
         label = getattr(parsed[0][2], "label", None)
         if args.json:
-            d = res.to_dict()
+            d = _result_dict(res, args)
             if label is not None:
                 d["label"] = label
             print(to_json(json_document(d)))
@@ -145,7 +257,7 @@ def _run(args) -> int:
         return 0
     if args.json:
         for (line, _, block), res in zip(parsed, results):
-            d = res.to_dict()
+            d = _result_dict(res, args)
             d["line"] = line
             label = getattr(block, "label", None)
             if label is not None:
