@@ -32,6 +32,10 @@ def scenario(L, N):
     return D.with_field(s, "block.pulses", N)
 
 
+def km(distance):
+    return "no key" if distance is None else f"{distance:.1f} km"
+
+
 def timed(fn, repeat):
     times, out = [], None
     for _ in range(repeat):
@@ -98,9 +102,9 @@ def module_level_figures(sc):
 
     for N in (1e6, 1e8, 1e10):
         t = time.perf_counter()
-        ra = DD.reach(scenario(0.0, N), "exact")["reach_km"]
-        rb = DD.reach(scenario(0.0, N), "hoeffding")["reach_km"]
-        print(f"reach at {N:.0e} pulses: exact {ra:.1f} km, hoeffding {rb:.1f} km "
+        ra = DD.reach(scenario(0.0, N), "exact").reach_km
+        rb = DD.reach(scenario(0.0, N), "hoeffding").reach_km
+        print(f"reach at {N:.0e} pulses: exact {km(ra)}, hoeffding {km(rb)} "
               f"({time.perf_counter() - t:.1f} s for both)")
 
 
