@@ -134,6 +134,12 @@ class LedgerTerm:
         return self.weight * self.epsilon
 
     def as_dict(self) -> dict:
+        """JSON-ready mapping: name, epsilon, role, charge, multiplicity, weight, contribution, description.
+
+        Returns
+        -------
+        dict
+        """
         return {"name": self.name, "epsilon": self.epsilon, "role": self.role.value, "charge": self.charge.value,
                 "multiplicity": self.multiplicity, "weight": self.weight, "contribution": self.contribution,
                 "description": self.description}
@@ -230,6 +236,12 @@ class Ledger:
         return t.epsilon
 
     def as_list(self) -> list:
+        """Every term as :meth:`LedgerTerm.as_dict`, in ledger order.
+
+        Returns
+        -------
+        list of dict
+        """
         return [t.as_dict() for t in self.terms]
 
     def fractions(self) -> dict:

@@ -144,6 +144,12 @@ class ExpectedCounts:
     live_fraction: float
 
     def as_dict(self) -> dict:
+        """JSON-ready mapping of the expected counts, keyed like a block file's fields.
+
+        Returns
+        -------
+        dict
+        """
         return {"key_basis.detections": self.key_detections.tolist(), "key_basis.errors": self.key_errors.tolist(),
                 "test_basis.detections": self.test_detections.tolist(),
                 "test_basis.errors": self.test_errors.tolist(), "live_fraction": float(self.live_fraction)}
@@ -277,6 +283,12 @@ class LinkModel:
         return None if f is None else float(pulses) / f
 
     def as_dict(self) -> dict:
+        """JSON-ready mapping with the ``link``, ``detector`` and ``source`` tables.
+
+        Returns
+        -------
+        dict
+        """
         return {"link": asdict(self.link), "detector": asdict(self.detector), "source": asdict(self.source)}
 
 

@@ -172,6 +172,12 @@ class CompiledExpression:
         return Enclosure.from_arb(self.certified(*args, prec=prec))
 
     def latex(self) -> str:
+        """LaTeX of the source expression (``sympy.latex``).
+
+        Returns
+        -------
+        str
+        """
         return sp.latex(self.expr)
 
 

@@ -89,12 +89,44 @@ class LeakageModel:
     name = "abstract"
 
     def bits(self, n, q):  # pragma: no cover - abstract
+        """Leakage in bits as a float (vectorised), for choosing parameters.
+
+        Parameters
+        ----------
+        n : float or array_like
+            Number of key bits reconciled.
+        q : float or array_like
+            Their error rate.
+
+        Returns
+        -------
+        float or numpy.ndarray
+        """
         raise NotImplementedError
 
     def bits_upper(self, n: int, q: float) -> int:  # pragma: no cover - abstract
+        """Leakage in whole bits, rounded up from a certified upper bound (what a key length subtracts).
+
+        Parameters
+        ----------
+        n : int
+            Number of key bits reconciled.
+        q : float
+            Their error rate.
+
+        Returns
+        -------
+        int
+        """
         raise NotImplementedError
 
     def describe(self) -> dict:
+        """JSON-ready description of the model: its name and parameters.
+
+        Returns
+        -------
+        dict
+        """
         return {"model": self.name}
 
 

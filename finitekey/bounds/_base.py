@@ -101,6 +101,21 @@ class Bound(abc.ABC):
 
     # ---- public API: validation, then the private hooks -------------------------
     def parameter(self, name: str) -> Parameter:
+        """The declared parameter called ``name``.
+
+        Parameters
+        ----------
+        name : str
+
+        Returns
+        -------
+        Parameter
+
+        Raises
+        ------
+        KeyError
+            If the bound has no such parameter.
+        """
         for p in self.parameters:
             if p.name == name:
                 return p
@@ -436,6 +451,12 @@ class SymbolicBound(Bound):
         raise ComputationError(f"{self.name}: could not certify the deviation for eps = {eps}")
 
     def latex(self) -> dict:
+        """LaTeX of the formulas, keyed ``"failure_probability"`` and ``"deviation"``.
+
+        Returns
+        -------
+        dict of str to str
+        """
         sym = sp.latex(self.symbols[self.deviation_parameter.name])
         out = {"failure_probability": r"\varepsilon = " + sp.latex(self.failure_probability_expr)}
         if self.deviation_expr is not None:

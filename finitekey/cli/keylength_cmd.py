@@ -98,12 +98,7 @@ def _at(line, exc: InputError) -> InputError:
 
 def _parse(line, data):
     try:
-        if not isinstance(data, dict):
-            raise InputError("block", data, "a JSON object with a \"protocol\" field")
-        if "protocol" not in data:
-            raise InputError("protocol", None, "one of: " + ", ".join(protocols.names()) + " (missing field)")
-        proto = protocols.get(data["protocol"])
-        return proto, proto.parse_block(data)
+        return protocols.block_from_dict(data)
     except InputError as exc:
         raise _at(line, exc) from None
 

@@ -71,6 +71,13 @@ class DesignProblem:
         return self.statistics != "hoeffding"
 
     def sizes(self):
+        """Numbers of free coordinates: ``(intensities, probabilities, basis bias, epsilon split)``.
+
+        Returns
+        -------
+        tuple of int
+            Zero for each group the scenario fixes.
+        """
         sc = self.scenario
         n_mu = 0 if sc.intensities is not None else (2 if self.k in (2, 3) else 0)
         n_p = 0 if sc.intensity_probabilities is not None else self.k - 1
@@ -124,6 +131,23 @@ class DesignProblem:
         return mu, p, qx, split
 
     def encode(self, mu, p, qx, split=None):
+        """Unconstrained coordinates of a design (the inverse of :meth:`decode`), e.g. for a warm start.
+
+        Parameters
+        ----------
+        mu : sequence of float
+            Intensities, descending.
+        p : sequence of float
+            Their probabilities.
+        qx : float
+            Key-basis probability.
+        split : sequence of float, optional
+            Epsilon split (default: the optimiser's starting share).
+
+        Returns
+        -------
+        numpy.ndarray
+        """
         n_mu, n_p, n_q, n_e = self.sizes()
         out = []
         if n_mu:

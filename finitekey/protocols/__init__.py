@@ -9,12 +9,14 @@ every protocol.
 
 from __future__ import annotations
 
+from ._loading import block_from_dict, load_block, load_blocks, load_scenario, scenario_from_dict
 from ._registry import all_protocols, get, names, register
 from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult,
                       NoKeyReason, ReachResult, Status)
 
 __all__ = ["register", "get", "names", "all_protocols", "KeyLengthResult", "DesignResult", "BlockTarget",
-           "BlockTargetKind", "BlockSizeResult", "ReachResult", "NoKeyReason", "Status", "KEY", "DEFAULT_PROTOCOL"]
+           "BlockTargetKind", "BlockSizeResult", "ReachResult", "NoKeyReason", "Status", "KEY", "DEFAULT_PROTOCOL",
+           "load_scenario", "load_block", "load_blocks", "scenario_from_dict", "block_from_dict"]
 
 #: Protocol whose default scenario ``finitekey design`` uses when no file is given.
 DEFAULT_PROTOCOL = "decoy-bb84"

@@ -14,6 +14,8 @@
 
 Every type has ``to_dict()`` giving JSON-ready data (the command line's
 ``--json`` output).  Protocol modules may add optional fields with defaults.
+``repr`` is one line (protocol, key length, epsilons, status); ``str`` and
+``summary()`` give every field, with the caution.
 
 References
 ----------
@@ -28,6 +30,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..budget import Ledger
+from ..cautions import CAUTION
 from ..errors import InputError
 
 __all__ = ["KeyLengthResult", "DesignResult", "BlockTargetKind", "BlockTarget", "BlockSizeResult", "ReachResult",
@@ -45,6 +48,47 @@ def _finite(d: dict) -> dict:
         else:
             out[k] = float(v)
     return out
+
+
+def _scalar(v) -> str:
+    if isinstance(v, float):
+        return f"{v:.12g}"
+    if v is None:
+        return "-"
+    if isinstance(v, (list, dict)) and not v:
+        return "(none)"
+    return str(v)
+
+
+def _lines(value, depth: int) -> list:
+    """Indented ``key: value`` lines of JSON-ready data; list items of mappings take one line each."""
+    pad = "  " * depth
+    out = []
+    if isinstance(value, dict):
+        for k, v in value.items():
+            if isinstance(v, (dict, list)) and v:
+                out.append(f"{pad}{k}:")
+                out += _lines(v, depth + 1)
+            else:
+                out.append(f"{pad}{k}: {_scalar(v)}")
+    elif isinstance(value, list):
+        for v in value:
+            if isinstance(v, dict):
+                out.append(f"{pad}- " + ", ".join(f"{k}={_scalar(x)}" for k, x in v.items()))
+            else:
+                out.append(f"{pad}- {_scalar(v)}")
+    else:
+        out.append(pad + _scalar(value))
+    return out
+
+
+def _summary(result) -> str:
+    """The one-line ``repr``, then every field of ``to_dict()`` indented, then the caution."""
+    return "\n".join([repr(result)] + _lines(result.to_dict(), 1) + ["", CAUTION])
+
+
+def _status_short(status) -> str:
+    return "key" if status is None or status.key else f"no key: {status.reason.value}"
 
 
 class NoKeyReason(enum.Enum):
@@ -181,15 +225,33 @@ class KeyLengthResult:
 
     @property
     def eps_total(self) -> float:
+        """Sum of every epsilon in the ledger (correctness and secrecy)."""
         return self.ledger.eps_total
 
     @property
     def eps_sec(self) -> float:
+        """Secrecy parameter: the weighted sum of the ledger's secrecy terms."""
         return self.ledger.eps_sec
 
     @property
     def eps_cor(self) -> float:
+        """Correctness parameter: the weighted sum of the ledger's correctness terms."""
         return self.ledger.eps_cor
+
+    def __repr__(self) -> str:
+        return (f"KeyLengthResult(protocol={self.protocol!r}, secret_key_length={int(self.secret_key_length)}, "
+                f"eps_sec={self.eps_sec:.3g}, eps_cor={self.eps_cor:.3g}, status={_status_short(self.status)!r})")
+
+    def summary(self) -> str:
+        """Every field as indented text, with the caution (also what ``str`` gives).
+
+        Returns
+        -------
+        str
+        """
+        return _summary(self)
+
+    __str__ = summary
 
     def to_dict(self) -> dict:
         """JSON-ready dictionary (see the protocol interface)."""
@@ -261,6 +323,24 @@ class DesignResult:
         if self.status is None:
             object.__setattr__(self, "status", KEY if has_key else design_no_key(self.expected.status))
         _check_status(self.status, has_key, "DesignResult")
+
+    def __repr__(self) -> str:
+        e = self.expected
+        rate = self.secret_key_rate_per_signal
+        return (f"DesignResult(protocol={self.protocol!r}, secret_key_length={int(e.secret_key_length)}, "
+                f"secret_key_rate_per_signal={'-' if rate is None else format(float(rate), '.4g')}, "
+                f"eps_sec={e.eps_sec:.3g}, eps_cor={e.eps_cor:.3g}, status={_status_short(self.status)!r})")
+
+    def summary(self) -> str:
+        """Every field as indented text, with the caution (also what ``str`` gives).
+
+        Returns
+        -------
+        str
+        """
+        return _summary(self)
+
+    __str__ = summary
 
     def to_dict(self) -> dict:
         rate = None if self.secret_key_rate_per_signal is None else float(self.secret_key_rate_per_signal)
@@ -388,6 +468,23 @@ class BlockSizeResult:
             object.__setattr__(self, "status", self.design.status)
         _check_status(self.status, self.design.expected.secret_key_length > 0, "BlockSizeResult")
 
+    def __repr__(self) -> str:
+        e = self.design.expected
+        return (f"BlockSizeResult(protocol={self.design.protocol!r}, target={str(self.target)!r}, "
+                f"size={int(self.size)}, size_kind={self.size_kind!r}, secret_key_length={int(e.secret_key_length)}, "
+                f"eps_sec={e.eps_sec:.3g}, eps_cor={e.eps_cor:.3g}, status={_status_short(self.status)!r})")
+
+    def summary(self) -> str:
+        """Every field as indented text, with the caution (also what ``str`` gives).
+
+        Returns
+        -------
+        str
+        """
+        return _summary(self)
+
+    __str__ = summary
+
     def to_dict(self) -> dict:
         return {"target": self.target.to_dict(), "size": int(self.size), "size_kind": self.size_kind,
                 "resolution": int(self.resolution), "status": self.status.to_dict(),
@@ -429,6 +526,26 @@ class ReachResult:
             raise ValueError("ReachResult: a search that reached its limit has no reach distance")
         if self.status.key != (self.at_reach is not None):
             raise ValueError("ReachResult: the status must match whether a design with a key is attached")
+
+    def __repr__(self) -> str:
+        best = self.at_reach
+        tail = ("" if best is None else f", protocol={best.protocol!r}, "
+                f"secret_key_length_at_reach={int(best.expected.secret_key_length)}, "
+                f"eps_sec={best.expected.eps_sec:.3g}, eps_cor={best.expected.eps_cor:.3g}")
+        km = "None" if self.reach_km is None else f"{float(self.reach_km):.4g}"
+        return (f"ReachResult(reach_km={km}, limit_reached={self.limit_reached}, statistics={self.statistics!r}"
+                f"{tail}, status={_status_short(self.status)!r})")
+
+    def summary(self) -> str:
+        """Every field as indented text, with the caution (also what ``str`` gives).
+
+        Returns
+        -------
+        str
+        """
+        return _summary(self)
+
+    __str__ = summary
 
     def to_dict(self) -> dict:
         out = {"reach_km": None if self.reach_km is None else float(self.reach_km), "status": self.status.to_dict(),

@@ -97,6 +97,23 @@ class Statistics(enum.Enum):
 
     @classmethod
     def parse(cls, value, field_name: str = "statistics") -> "Statistics":
+        """The method named by ``value`` (a name or a member; None gives the default, ``exact``).
+
+        Parameters
+        ----------
+        value : str, Statistics or None
+        field_name : str
+            Field named in the error message.
+
+        Returns
+        -------
+        Statistics
+
+        Raises
+        ------
+        InputError
+            For an unknown name, listing the valid ones.
+        """
         if value is None:
             return cls.EXACT
         if isinstance(value, cls):
@@ -992,14 +1009,22 @@ class BB84:
 
     @staticmethod
     def key_length(block, statistics=None):
+        """:func:`finitekey.protocols.bb84.key_length` (see there for the parameters)."""
         return key_length(block, statistics)
 
     @staticmethod
     def key_length_batch(blocks, statistics=None, jobs: int = 1):
+        """:func:`finitekey.protocols.bb84.key_length_batch` (see there for the parameters)."""
         return key_length_batch(blocks, statistics, jobs=jobs)
 
     @staticmethod
     def default_scenario():
+        """The built-in BB84 scenario (a fictional lab link of our own).
+
+        Returns
+        -------
+        BB84Scenario
+        """
         return parse_scenario(DEFAULT_SCENARIO)
 
 

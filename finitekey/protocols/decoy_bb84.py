@@ -246,6 +246,12 @@ class DecoyBlock:
     kato_expected: dict | None = None
 
     def as_dict(self) -> dict:
+        """JSON-ready mapping in the block-file layout (``parse_block`` reads it back).
+
+        Returns
+        -------
+        dict
+        """
         d = {"protocol": PROTOCOL_NAME, "intensities": list(self.intensities),
              "intensity_probabilities": list(self.intensity_probabilities),
              "key_basis": {"detections": list(self.key_detections), "errors": list(self.key_errors)},
@@ -976,6 +982,12 @@ class DecoyScenario:
     security: tuple | None = None
 
     def as_dict(self) -> dict:
+        """JSON-ready mapping in the scenario-file layout (``parse_scenario`` reads it back).
+
+        Returns
+        -------
+        dict
+        """
         proto = {"name": PROTOCOL_NAME, "intensity_count": self.intensity_count,
                  "weakest_intensity": self.weakest_intensity}
         if self.label is not None:
@@ -1099,40 +1111,84 @@ class DecoyBB84:
     default_statistics = DEFAULT_STATISTICS
 
     def parse_block(self, data: dict) -> DecoyBlock:
+        """:func:`parse_block`: validate one observed block mapping (errors name the field)."""
         return parse_block(data)
 
     def key_length(self, block: DecoyBlock, statistics: str | None = None) -> KeyLengthResult:
+        """:func:`key_length`: certified secret key length of one block (see there for the parameters)."""
         return key_length(block, statistics)
 
     def key_length_batch(self, blocks, statistics: str | None = None, jobs: int = 1) -> list:
         return key_length_batch(blocks, statistics, jobs=jobs)
 
     def parse_scenario(self, data: dict) -> DecoyScenario:
+        """:func:`parse_scenario`: validate a scenario mapping (the parsed TOML)."""
         return parse_scenario(data)
 
     def default_scenario(self) -> DecoyScenario:
+        """:func:`default_scenario`: the built-in fictional metro link."""
         return default_scenario()
 
     # The entry points for callers run with one BLAS thread (restored afterwards); see finitekey/_threads.py.
     @with_one_blas_thread
     def design(self, scenario: DecoyScenario, statistics: str | None = None) -> DesignResult:
+        """Choose intensities, their probabilities, the basis bias and the epsilon split for ``scenario``.
+
+        Parameters
+        ----------
+        scenario : DecoyScenario
+        statistics : str, optional
+            Statistics method (default: the scenario's, else the protocol's).
+
+        Returns
+        -------
+        DesignResult
+            See :func:`finitekey.optimize.decoy_design.design`; runs with one BLAS thread.
+        """
         from ..optimize import decoy_design  # optimisation sits above protocols; imported on use
         return decoy_design.design(scenario, _check_design_statistics(statistics))
 
     @with_one_blas_thread
     def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None):
+        """Smallest number of pulses whose design reaches ``target``.
+
+        Parameters
+        ----------
+        scenario : DecoyScenario
+        target : BlockTarget
+        statistics : str, optional
+
+        Returns
+        -------
+        BlockSizeResult
+            See :func:`finitekey.optimize.decoy_design.blocksize`; runs with one BLAS thread.
+        """
         from ..optimize import decoy_design
         return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics))
 
     @with_one_blas_thread
     def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> ReachResult:
+        """Largest fibre length with a positive certified key for ``scenario``'s block size.
+
+        Parameters
+        ----------
+        scenario : DecoyScenario
+        statistics : str, optional
+
+        Returns
+        -------
+        ReachResult
+            See :func:`finitekey.optimize.decoy_design.reach`; runs with one BLAS thread.
+        """
         from ..optimize import decoy_design
         return decoy_design.reach(scenario, _check_design_statistics(statistics))
 
     def scenario_fields(self) -> list:
+        """:func:`scenario_fields`: the dotted scenario fields a sweep may vary."""
         return scenario_fields()
 
     def with_field(self, scenario: DecoyScenario, dotted_name: str, value) -> DecoyScenario:
+        """:func:`with_field`: a copy of ``scenario`` with one dotted field changed (validated)."""
         return with_field(scenario, dotted_name, value)
 
 

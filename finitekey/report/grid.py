@@ -69,6 +69,12 @@ class GridPoint:
     assignments: tuple  # ((field, value), ...) in axis order
 
     def as_dict(self) -> dict:
+        """The field values set at this point, ``{dotted field: value}``.
+
+        Returns
+        -------
+        dict
+        """
         return dict(self.assignments)
 
 

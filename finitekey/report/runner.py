@@ -63,6 +63,12 @@ class Progress:
         self._t0 = time.monotonic()
 
     def step(self, n: int = 1) -> None:
+        """Count ``n`` more points done and redraw the bar (when enabled).
+
+        Parameters
+        ----------
+        n : int
+        """
         self.done += n
         if not self.enabled:
             return
@@ -75,6 +81,7 @@ class Progress:
         self.stream.flush()
 
     def close(self) -> None:
+        """End the bar's line (when enabled)."""
         if self.enabled:
             self.stream.write("\n")
             self.stream.flush()

@@ -74,9 +74,21 @@ class LoadedScenario:
     sha256: str
 
     def protocol_object(self):
+        """The registered protocol object named by the file.
+
+        Returns
+        -------
+        object
+        """
         return protocols.get(self.protocol)
 
     def scenario(self):
+        """The file's scenario, parsed by its protocol (errors name the field).
+
+        Returns
+        -------
+        object
+        """
         return self.protocol_object().parse_scenario(self.data)
 
 
@@ -320,6 +332,12 @@ class SweepTable:
         return out
 
     def to_dict(self) -> dict:
+        """JSON-ready table: provenance, protocol, mode, statistics, target, varied fields, columns, rows.
+
+        Returns
+        -------
+        dict
+        """
         return {"provenance": dict(self.provenance), "protocol": self.protocol, "mode": self.mode,
                 "statistics": self.statistics, "target": self.target,
                 "vary": [{"field": a.field, "values": list(a.values), "text": a.text} for a in self.axes],
