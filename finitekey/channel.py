@@ -156,12 +156,33 @@ class ExpectedCounts:
 
 
 def transmittance(loss_db, detector_efficiency):
-    """Overall single-photon transmittance ``eta_det * 10**(-loss_db/10)`` (vectorised)."""
+    """Overall single-photon transmittance ``eta_det * 10**(-loss_db/10)`` (vectorised).
+
+    Parameters
+    ----------
+    loss_db : float or array_like
+        Channel loss in dB.
+    detector_efficiency : float or array_like
+        In [0, 1].
+
+    Returns
+    -------
+    float or numpy.ndarray
+    """
     return detector_efficiency * np.power(10.0, -np.asarray(loss_db, dtype=float) / 10.0)
 
 
 def repeaterless_bound(eta):
     """Secret-key capacity of the pure-loss channel, ``-log2(1 - eta)`` bits per use (vectorised).
+
+    Parameters
+    ----------
+    eta : float or array_like
+        Channel transmittance in [0, 1).
+
+    Returns
+    -------
+    float or numpy.ndarray
 
     References
     ----------

@@ -67,7 +67,22 @@ class Enclosure:
 
 
 def to_arb(x) -> arb:
-    """Convert an int, float, mpf or arb exactly to an arb ball."""
+    """Convert an int, float, mpf or arb exactly to an arb ball.
+
+    Parameters
+    ----------
+    x : int, float, numpy scalar, mpmath.mpf or flint.arb
+
+    Returns
+    -------
+    flint.arb
+        A ball containing exactly ``x`` (a point ball for ints, floats and mpf).
+
+    Raises
+    ------
+    TypeError
+        For any other type (a decimal string would not convert exactly).
+    """
     if isinstance(x, arb):
         return x
     if isinstance(x, (int, np.integer)):

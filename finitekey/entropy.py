@@ -47,12 +47,30 @@ IDEAL_OVERLAP = sp.Rational(1, 2)
 
 
 def log2_expr(x):
-    """Base-2 logarithm as a sympy expression (``log(x)/log(2)``)."""
+    """Base-2 logarithm as a sympy expression (``log(x)/log(2)``).
+
+    Parameters
+    ----------
+    x : sympy.Expr or number
+
+    Returns
+    -------
+    sympy.Expr
+    """
     return sp.log(x) / sp.log(2)
 
 
 def binary_entropy_expr(x):
-    """Binary entropy h(x) in bits as a sympy expression of ``x`` (valid on (0, 1))."""
+    """Binary entropy h(x) in bits as a sympy expression of ``x`` (valid on (0, 1)).
+
+    Parameters
+    ----------
+    x : sympy.Expr
+
+    Returns
+    -------
+    sympy.Expr
+    """
     return -(x * sp.log(x) + (1 - x) * log1p(-x)) / sp.log(2)
 
 
@@ -61,6 +79,15 @@ _H = compile_expression(binary_entropy_expr(_x), (_x,))
 
 def binary_entropy(x):
     """Binary entropy in bits, vectorised; h(0) = h(1) = 0.
+
+    Parameters
+    ----------
+    x : float or array_like
+        Probabilities in [0, 1].
+
+    Returns
+    -------
+    float or numpy.ndarray
 
     Raises
     ------
@@ -75,7 +102,20 @@ def binary_entropy(x):
 
 
 def binary_entropy_certified(x, prec: int = 128):
-    """Ball enclosure (arb) of h(x) for x in (0, 1)."""
+    """Ball enclosure (arb) of h(x) for x in (0, 1).
+
+    Parameters
+    ----------
+    x : int, float, mpf or arb
+        Converted exactly (:func:`finitekey.compile.to_arb`).
+    prec : int
+        Working precision in bits.
+
+    Returns
+    -------
+    flint.arb
+        A ball containing the exact value.
+    """
     return _H.certified(x, prec=prec)
 
 
@@ -84,10 +124,27 @@ def uncertainty_min_entropy_expr(n, phase_error_rate, overlap=IDEAL_OVERLAP):
 
     ``n * (log2(1/overlap) - h(phase_error_rate))``; valid while the phase-error
     bound holds and ``phase_error_rate <= 1/2``.
+
+    Parameters
+    ----------
+    n, phase_error_rate, overlap : sympy.Expr or number
+
+    Returns
+    -------
+    sympy.Expr
     """
     return n * (log2_expr(1 / overlap) - binary_entropy_expr(phase_error_rate))
 
 
 def hash_penalty_expr(eps_pa):
-    """Bits removed by privacy amplification for an ``eps_pa``-close key: 2 log2(1/(2 eps_pa))."""
+    """Bits removed by privacy amplification for an ``eps_pa``-close key: 2 log2(1/(2 eps_pa)).
+
+    Parameters
+    ----------
+    eps_pa : sympy.Expr or number
+
+    Returns
+    -------
+    sympy.Expr
+    """
     return 2 * log2_expr(1 / (2 * eps_pa))

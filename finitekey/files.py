@@ -34,6 +34,13 @@ def atomic_write(path, data, option: str = "output") -> None:
     A shortcut for one file: :func:`finitekey.outputs.plan_outputs` then
     :func:`finitekey.outputs.write_outputs`.
 
+    Parameters
+    ----------
+    path : str or os.PathLike
+    data : str or bytes
+    option : str
+        Command-line option named in error messages.
+
     Raises
     ------
     InputError
@@ -80,12 +87,39 @@ def loads_json(text: str, where: str, allowed: str = "valid JSON"):
 
 
 def read_json(path) -> object:
-    """Parse a JSON file; syntax errors name the file, line and column; a key given twice is refused."""
+    """Parse a JSON file; syntax errors name the file, line and column; a key given twice is refused.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+
+    Returns
+    -------
+    object
+        The parsed JSON value.
+
+    Raises
+    ------
+    InputError
+    """
     return loads_json(_read_text(path), str(path))
 
 
 def read_toml(path) -> dict:
-    """Parse a TOML file; syntax errors name the file and the problem."""
+    """Parse a TOML file; syntax errors name the file and the problem.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+
+    Returns
+    -------
+    dict
+
+    Raises
+    ------
+    InputError
+    """
     text = _read_text(path)
     try:
         return tomllib.loads(text)

@@ -227,7 +227,28 @@ MODEL_NAMES = ("efficiency", "second_order")
 
 def leakage_model(name: str, *, efficiency: float = 1.1, frame_error_rate: float = 1e-2,
                   field: str = "reconciliation.model") -> LeakageModel:
-    """Build a design leakage model by name: ``"efficiency"`` or ``"second_order"``."""
+    """Build a design leakage model by name: ``"efficiency"`` or ``"second_order"``.
+
+    Parameters
+    ----------
+    name : str
+        ``"efficiency"`` (:class:`FixedEfficiency`) or ``"second_order"`` (:class:`SecondOrderLeakage`).
+    efficiency : float
+        Reconciliation efficiency ``f >= 1``.
+    frame_error_rate : float
+        Frame error rate of the second-order model.
+    field : str
+        Field named in error messages.
+
+    Returns
+    -------
+    LeakageModel
+
+    Raises
+    ------
+    InputError
+        For an unknown name or a parameter outside its domain.
+    """
     if name == "efficiency":
         return FixedEfficiency(efficiency)
     if name == "second_order":

@@ -298,7 +298,17 @@ def _default_split(k: int):
 
 
 def objective_problem(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS) -> DesignProblem:
-    """The design problem (float objective and parameter map) of a scenario; used by the benchmark."""
+    """The design problem (float objective and parameter map) of a scenario; used by the benchmark.
+
+    Parameters
+    ----------
+    scenario : DecoyScenario
+    statistics : str
+
+    Returns
+    -------
+    DesignProblem
+    """
     if scenario.intensity_count not in (2, 3):
         raise InputError("protocol.intensity_count", scenario.intensity_count,
                          "2 or 3 for design (the closed forms); larger counts are analysed by key_length only")
@@ -533,6 +543,18 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
 
     ``fraction=F`` is a fraction of the infinite-decoy asymptotic rate with no sifting loss
     (:func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate` with ``sifting=1``).
+
+    Parameters
+    ----------
+    scenario : DecoyScenario
+    target : BlockTarget
+    statistics : str
+    max_pulses : float
+        Largest block tried.
+
+    Returns
+    -------
+    BlockSizeResult
     """
     if target.kind is BlockTargetKind.RATE_FRACTION:
         asym, _ = D.optimal_gllp_rate(scenario.model, scenario.ec_efficiency, sifting=1.0)

@@ -193,7 +193,17 @@ def min_entropy_expr(n, phi, overlap, entropy=binary_entropy_expr):
 def key_length_expr(n, phi, overlap, leak, tag, eps_pa, entropy=binary_entropy_expr):
     """The key-length formula (before rounding) as a sympy expression; see the module docstring.
 
-    ``entropy`` defaults to the binary entropy; an undefined function ``h`` is passed only for display.
+    Parameters
+    ----------
+    n, phi, overlap, leak, tag, eps_pa : sympy.Expr or number
+        Key bits, phase-error rate bound, measurement overlap, reconciliation leakage, verification tag bits,
+        privacy-amplification epsilon.
+    entropy : callable
+        Defaults to the binary entropy; an undefined function ``h`` is passed only for display.
+
+    Returns
+    -------
+    sympy.Expr
     """
     return min_entropy_expr(n, phi, overlap, entropy) - leak - tag - hash_penalty_expr(eps_pa)
 
@@ -257,7 +267,17 @@ FORMULA_LATEX = (r"\ell = \left\lfloor " + sp.latex(key_length_expr(
 
 
 def verification_tag_bits(eps_cor: float) -> int:
-    """Length ``ceil(log2(1/eps_cor))`` of the verification hash, computed exactly from the float's value."""
+    """Length ``ceil(log2(1/eps_cor))`` of the verification hash, computed exactly from the float's value.
+
+    Parameters
+    ----------
+    eps_cor : float
+        Correctness parameter in (0, 1).
+
+    Returns
+    -------
+    int
+    """
     eps_cor = PROBABILITY.check("eps_cor", eps_cor)
     x = Fraction(eps_cor)
     t = max(0, math.ceil(-math.log2(eps_cor)) - 2)
@@ -267,7 +287,17 @@ def verification_tag_bits(eps_cor: float) -> int:
 
 
 def sifting_fraction(p_x):
-    """Fraction of detected rounds kept by sifting: p_X^2 + p_Z^2 (common practice, no source)."""
+    """Fraction of detected rounds kept by sifting: p_X^2 + p_Z^2 (common practice, no source).
+
+    Parameters
+    ----------
+    p_x : float or array_like
+        Probability of basis X.
+
+    Returns
+    -------
+    float or numpy.ndarray
+    """
     p_x = np.asarray(p_x, dtype=float)
     out = p_x ** 2 + (1 - p_x) ** 2
     return float(out) if out.ndim == 0 else out

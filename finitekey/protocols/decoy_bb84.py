@@ -132,7 +132,16 @@ _POSITIVE = Domain(0.0, math.inf, lower_open=True)
 
 
 def three_intensity_condition(mu) -> bool:
-    """Whether intensities (descending) satisfy the closed form's ``mu1 > mu2 + mu3`` and ``mu2 > mu3 >= 0``."""
+    """Whether intensities (descending) satisfy the closed form's ``mu1 > mu2 + mu3`` and ``mu2 > mu3 >= 0``.
+
+    Parameters
+    ----------
+    mu : sequence of float
+
+    Returns
+    -------
+    bool
+    """
     return len(mu) == 3 and mu[0] > mu[1] + mu[2] and mu[1] > mu[2] >= 0
 
 
@@ -176,6 +185,18 @@ def term_specs(n_count: int, analysis: str | None = None) -> tuple:
     ``undetected_correction_failure`` charges eps_cor to the secrecy too.
 
     Default shares follow the 2014 per-unit split (one unit per event or appearance) over the split terms.
+
+    Parameters
+    ----------
+    n_count : int
+        Number of one-sided count intervals.
+    analysis : str, optional
+        ``"three-intensity"``, ``"two-intensity"`` or None (the linear program); ``"two-intensity"`` adds the
+        ``undetected_correction_failure`` term.
+
+    Returns
+    -------
+    tuple of TermSpec
     """
     units = n_count + 2 * SINGLE_PHOTON_APPEARANCES + 2 * CHAIN_RULES + 1
     specs = (
@@ -886,6 +907,18 @@ def gllp_rate(model: LinkModel, mu, ec_efficiency: float, sifting: float = 0.5):
     ``R = sifting * [Q1 (1 - h(e1)) - f Q_mu h(E_mu)]`` with ``Q1 = Y1 mu e^{-mu}`` (GLLP with the decoy
     method, Lo-Ma-Chen 2005, Ma-Qi-Zhao-Lo 2005), clipped at 0.  Vectorised in ``mu``.
 
+    Parameters
+    ----------
+    model : LinkModel
+    mu : float or array_like
+        Signal intensity.
+    ec_efficiency : float
+    sifting : float
+
+    Returns
+    -------
+    float or numpy.ndarray
+
     References
     ----------
     .. [1] X. Ma, B. Qi, Y. Zhao, H.-K. Lo, Phys. Rev. A 72, 012326 (2005).
@@ -901,7 +934,19 @@ def gllp_rate(model: LinkModel, mu, ec_efficiency: float, sifting: float = 0.5):
 
 
 def optimal_gllp_rate(model: LinkModel, ec_efficiency: float, sifting: float = 0.5) -> tuple:
-    """``(rate, mu)`` maximising :func:`gllp_rate` over the signal intensity in (0, 2)."""
+    """``(rate, mu)`` maximising :func:`gllp_rate` over the signal intensity in (0, 2).
+
+    Parameters
+    ----------
+    model : LinkModel
+    ec_efficiency : float
+    sifting : float
+
+    Returns
+    -------
+    tuple of float
+        ``(rate, mu)``; ``(0.0, mu)`` when no intensity gives a positive rate.
+    """
     grid = np.linspace(0.01, 2.0, 200)
     vals = gllp_rate(model, grid, ec_efficiency, sifting)
     i = int(np.argmax(vals))
