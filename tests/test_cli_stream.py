@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 
 from finitekey import protocols
+from finitekey.cautions import CAUTION
 from finitekey.cli import main
 from finitekey.cli.keylength_cmd import COMPACT_OMITS, compact, stream
 
@@ -113,3 +114,15 @@ def test_batch_compact_lines(capsys):
     assert [d["secret_key_length"] for d in small] == [d["secret_key_length"] for d in full]
     assert [d["line"] for d in small] == [d["line"] for d in full]
     assert all("assumptions" not in d and "formula" not in d for d in small)
+    # every record, compact or not, carries the caution (house rule: every output does)
+    assert all(d["caution"] == CAUTION for d in full + small)
+
+
+def test_single_json_and_stream_records_carry_the_caution(capsys):
+    path = str(ROOT / "examples" / "blocks" / "bb84_block.json")
+    for flag in ("--json", "--compact"):
+        assert main(["keylength", path, flag]) == 0
+        assert json.loads(capsys.readouterr().out)["caution"] == CAUTION
+    out = io.StringIO()
+    stream([json.dumps(BLOCK)], out, io.StringIO(), compact_output=True)
+    assert json.loads(out.getvalue())["caution"] == CAUTION
