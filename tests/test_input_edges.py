@@ -430,3 +430,17 @@ def test_estimate_names_are_distinct_and_settings_are_separate(tmp_path, capsys)
     path = write(tmp_path, "d.json", json.dumps(DECOY_BLOCK))
     rc, out, _ = run(capsys, ["keylength", path])
     assert rc == 0 and "setting: analysis" in out and "three-intensity" in out
+
+
+def test_mpmath_precision_has_the_same_range_in_the_api():
+    from finitekey import bounds
+
+    b = bounds.get("hoeffding")
+    for dps in (0, 10**6, 2.5):
+        with pytest.raises(InputError) as info:
+            b.deviation_mp(1e-3, dps=dps, n=100)
+        assert info.value.field == "dps"
+    with pytest.raises(InputError):
+        b.failure_probability_mp(0.1, dps=10**6, n=100)
+    # inside the range: mpmath agrees with float64 (the bound's float code) to float precision
+    assert math.isclose(float(b.deviation_mp(1e-3, dps=30, n=100)), float(b.deviation(1e-3, n=100)), rel_tol=1e-12)

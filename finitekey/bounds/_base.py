@@ -37,7 +37,7 @@ import sympy as sp
 from flint import ctx
 
 from ..compile import CompiledExpression, Enclosure, compile_expression, to_arb
-from ..domains import PROBABILITY, Parameter
+from ..domains import DPS, PROBABILITY, Parameter
 from ..errors import ComputationError, InputError
 
 __all__ = ["Bound", "SymbolicBound", "EPS", "Reference"]
@@ -152,12 +152,12 @@ class Bound(abc.ABC):
     def deviation_mp(self, eps, dps: int = 50, **params):
         """Deviation at ``dps`` decimal digits (mpmath); scalar inputs only."""
         eps = EPS.check(_scalar(eps, "eps"))
-        return self._deviation_mp(eps, self._scalars(params), dps)
+        return self._deviation_mp(eps, self._scalars(params), DPS.check_scalar("dps", dps))
 
     def failure_probability_mp(self, deviation, dps: int = 50, **params):
         """Failure probability at ``dps`` decimal digits (mpmath); scalar inputs only."""
         d = self.deviation_parameter.check(_scalar(deviation, self.deviation_parameter.name))
-        return self._failure_probability_mp(d, self._scalars(params), dps)
+        return self._failure_probability_mp(d, self._scalars(params), DPS.check_scalar("dps", dps))
 
     def deviation_certified(self, eps, prec: int = 128, **params) -> Enclosure:
         """Enclosure guaranteed to contain the exact deviation."""
