@@ -35,7 +35,7 @@ from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
-from .domains import Domain
+from .domains import RATE_HZ, Domain
 from .errors import InputError
 
 __all__ = ["Link", "Detector", "Source", "LinkModel", "ExpectedCounts", "transmittance", "repeaterless_bound"]
@@ -127,7 +127,7 @@ class Source:
     def __post_init__(self):
         if self.repetition_rate_hz is not None:
             object.__setattr__(self, "repetition_rate_hz",
-                               _POS.check_scalar("source.repetition_rate_hz", self.repetition_rate_hz))
+                               RATE_HZ.check_scalar("source.repetition_rate_hz", self.repetition_rate_hz))
 
 
 @dataclass(frozen=True)

@@ -17,7 +17,7 @@ import numpy as np
 from .errors import InputError
 
 __all__ = ["Domain", "Parameter", "PROBABILITY", "COUNT", "POSITIVE_COUNT", "POSITIVE_REAL", "SECURITY_EPSILON",
-           "DPS"]
+           "DPS", "RATE_HZ", "DETECTION_PROBABILITY"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -191,6 +191,12 @@ POSITIVE_REAL = Domain(0.0, math.inf, lower_open=True)
 #: target in use (common practice, no source) and would underflow float64 once split over a ledger and
 #: squared (the smoothing term of BB84), so they are refused here, naming the field as given.
 SECURITY_EPSILON = Domain(1e-100, 1.0, upper_open=True)
+#: Signal or pulse rates in Hz: 1 mHz to 1 PHz, far beyond any source in use (common practice, no source); a
+#: subnormal rate would make the block fill time infinite.
+RATE_HZ = Domain(1e-3, 1e15)
+#: Detection probability per signal of a budget: at least 1e-100, so that detections / probability (the
+#: signals per block) stays finite.
+DETECTION_PROBABILITY = Domain(1e-100, 1.0, upper_open=True)
 #: Decimal digits of an mpmath evaluation (``--dps``): below 15 is less than float64 gives; 1000 is far beyond
 #: any need and keeps a mistyped value (10^6 digits was reported to run for about 7 minutes) from hanging.
 DPS = Domain(15, 1000, integer=True)

@@ -75,6 +75,14 @@ def _unique_pairs(pairs):
     return out
 
 
+def unique_object_pairs(pairs) -> dict:
+    """``object_pairs_hook`` for :func:`json.loads` that raises :class:`InputError` for a key given twice."""
+    try:
+        return _unique_pairs(pairs)
+    except _DuplicateKey as exc:
+        raise InputError(str(exc.key), exc.value, "each field given once (this field is repeated)") from None
+
+
 def loads_json(text: str, where: str, allowed: str = "valid JSON"):
     """Parse JSON text; syntax errors and repeated keys raise :class:`InputError` naming ``where``."""
     try:

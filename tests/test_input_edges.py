@@ -444,3 +444,36 @@ def test_mpmath_precision_has_the_same_range_in_the_api():
         b.failure_probability_mp(0.1, dps=10**6, n=100)
     # inside the range: mpmath agrees with float64 (the bound's float code) to float precision
     assert math.isclose(float(b.deviation_mp(1e-3, dps=30, n=100)), float(b.deviation(1e-3, n=100)), rel_tol=1e-12)
+
+
+# --- a tiny rate or detection probability would make a fill time or a signal count infinite ---------------------
+@pytest.mark.parametrize("text, field", [
+    (bb84_toml(detections="1000000\ndetection_probability = 5e-324"), "budget.detection_probability"),
+    (bb84_toml(detections="1000000\ndetection_probability = 1e-3\nsignal_rate_hz = 5e-324"), "budget.signal_rate_hz"),
+    (decoy_toml() + "[source]\nrepetition_rate_hz = 5e-324\n", "source.repetition_rate_hz"),
+])
+def test_subnormal_rates_are_refused_by_field(tmp_path, capsys, text, field):
+    path = write(tmp_path, "s.toml", text)
+    one_line_error(*run(capsys, ["design", path, "--json"]), f"{field} = 5e-324 is not allowed")
+
+
+def test_json_writer_refusal_is_one_line():
+    from finitekey.cli.render import to_json, to_json_line
+    from finitekey.errors import ComputationError
+
+    for writer in (to_json, to_json_line):
+        with pytest.raises(ComputationError, match="JSON cannot carry"):
+            writer({"block_fill_time_s": math.inf})
+
+
+def test_stream_line_with_a_repeated_field_is_refused():
+    import io
+
+    from finitekey.cli.keylength_cmd import stream
+
+    out, err = io.StringIO(), io.StringIO()
+    line = json.dumps(BB84_BLOCK)[:-1] + ', "test_errors": 5}'
+    assert stream([json.dumps(BB84_BLOCK), line], out, err) == 2
+    answers = [json.loads(x) for x in out.getvalue().splitlines()]
+    assert answers[0]["secret_key_length"] > 0
+    assert answers[1]["line"] == 2 and answers[1]["field"] == "test_errors" and "once" in answers[1]["error"]

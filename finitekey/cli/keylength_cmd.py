@@ -23,8 +23,8 @@ from types import SimpleNamespace
 
 from .. import protocols
 from ..errors import ComputationError, InputError
-from ..files import read_records
-from .render import caution_block, fmt, json_document, table, to_json
+from ..files import read_records, unique_object_pairs
+from .render import caution_block, fmt, json_document, table, to_json, to_json_line
 
 __all__ = ["COMMAND", "load_blocks", "render_key_result", "render_ledger", "compact", "COMPACT_OMITS", "stream"]
 
@@ -142,7 +142,9 @@ def render_key_result(res, label: str | None = None) -> str:
 def _line_result(line: int, text: str, statistics, compact_output: bool) -> dict:
     """Answer to one line of a stream: the result, or raise InputError / ComputationError naming the line."""
     try:
-        data = json.loads(text)
+        data = json.loads(text, object_pairs_hook=unique_object_pairs)
+    except InputError as exc:  # a field given twice
+        raise _at(line, exc) from None
     except json.JSONDecodeError as exc:
         shown = text.strip() if len(text.strip()) <= 60 else text.strip()[:57] + "..."
         raise InputError(f"line {line}: block", shown,
@@ -185,8 +187,7 @@ def stream(lines, out, err, statistics=None, compact_output: bool = False) -> in
         if not text.strip():
             continue
         try:
-            answer = json.dumps(_line_result(number, text, statistics, compact_output), allow_nan=False,
-                                separators=(",", ":"))
+            answer = to_json_line(_line_result(number, text, statistics, compact_output))
         except InputError as exc:
             field = exc.field.split(": ", 1)[1] if exc.field.startswith(f"line {number}: ") else exc.field
             answer = json.dumps({"line": number, "error": str(exc), "field": field, "allowed": exc.allowed},
@@ -257,7 +258,7 @@ def _run(args) -> int:
             label = getattr(block, "label", None)
             if label is not None:
                 d["label"] = label
-            print(json.dumps(json_document(d), allow_nan=False, separators=(",", ":")))
+            print(to_json_line(json_document(d)))
         return 0
     rows = []
     for (line, _, block), res in zip(parsed, results):

@@ -8,6 +8,7 @@ import math
 import numpy as np
 
 from ..cautions import CAUTION
+from ..errors import ComputationError
 from ..report.numbers import format_number
 
 
@@ -34,9 +35,26 @@ def json_document(obj: dict) -> dict:
     return out
 
 
+def to_json_line(obj) -> str:
+    """One line of JSON Lines (compact); non-finite floats are refused as in :func:`to_json`."""
+    try:
+        return json.dumps(obj, default=_default, allow_nan=False, separators=(",", ":"))
+    except ValueError as exc:
+        raise ComputationError(f"a result holds a number JSON cannot carry ({exc}); no output written") from None
+
+
 def to_json(obj) -> str:
-    """JSON text; non-finite floats are refused so that no NaN reaches a consumer."""
-    return json.dumps(obj, indent=2, default=_default, allow_nan=False)
+    """JSON text; non-finite floats are refused so that no NaN reaches a consumer.
+
+    Raises
+    ------
+    ComputationError
+        If a value is not finite (one line, exit status 3, instead of a traceback).
+    """
+    try:
+        return json.dumps(obj, indent=2, default=_default, allow_nan=False)
+    except ValueError as exc:
+        raise ComputationError(f"a result holds a number JSON cannot carry ({exc}); no output written") from None
 
 
 def table(rows, headers) -> str:

@@ -70,7 +70,7 @@ from .._threads import with_one_blas_thread
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
 from ..budget import Charge, Ledger, Role, TermSpec, allocate, squared_down
 from ..compile import compile_expression
-from ..domains import POSITIVE_COUNT, PROBABILITY, SECURITY_EPSILON, Domain
+from ..domains import DETECTION_PROBABILITY, POSITIVE_COUNT, PROBABILITY, RATE_HZ, SECURITY_EPSILON, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
 from ..errors import ComputationError, InputError
 from ..searching import golden_max, maximize_box, smallest_passing
@@ -593,7 +593,6 @@ def _batch_chunk(blocks, statistics, prec) -> list:
 # ---------------------------------------------------------------------------------------------------------------
 _P_X_DOMAIN = Domain(0.0, 1.0, lower_open=True, upper_open=True)
 _SHARE_DOMAIN = Domain(0.0, 1.0, lower_open=True, upper_open=True)
-_RATE_DOMAIN = Domain(0.0, math.inf, lower_open=True)
 _FRAME_DOMAIN = Domain(0.0, 0.5, lower_open=True, upper_open=True)
 
 #: section -> field -> (kind, domain or choices, default); default None means optional/absent.
@@ -601,7 +600,8 @@ SCENARIO_SCHEMA = {
     "protocol": {"name": ("choice", (PROTOCOL_NAME,), PROTOCOL_NAME), "label": ("str", None, None)},
     "channel": {"qber": ("num", QBER_DOMAIN, None)},
     "budget": {"detections": ("num", POSITIVE_COUNT, None), "signals": ("num", POSITIVE_COUNT, None),
-               "detection_probability": ("num", PROBABILITY, None), "signal_rate_hz": ("num", _RATE_DOMAIN, None)},
+               "detection_probability": ("num", DETECTION_PROBABILITY, None),
+               "signal_rate_hz": ("num", RATE_HZ, None)},
     "security": {"eps_sec": ("num", SECURITY_EPSILON, None), "eps_cor": ("num", SECURITY_EPSILON, None),
                  "eps_total": ("num", SECURITY_EPSILON, None), "eps_cor_share": ("num", PROBABILITY, None)},
     "reconciliation": {"model": ("choice", ("efficiency", "second_order"), "efficiency"),
