@@ -1164,6 +1164,7 @@ class DecoyBB84:
         return key_length(block, statistics)
 
     def key_length_batch(self, blocks, statistics: str | None = None, jobs: int = 1) -> list:
+        """:func:`key_length_batch`: key lengths of many blocks, identical to :meth:`key_length` block by block."""
         return key_length_batch(blocks, statistics, jobs=jobs)
 
     def parse_scenario(self, data: dict) -> DecoyScenario:
