@@ -104,11 +104,11 @@ def _parse(line, data):
 
 
 def render_ledger(ledger) -> str:
-    rows = [[t.name, t.role.value, t.weight, t.epsilon, t.contribution] for t in ledger.terms]
-    rows.append(["eps_cor (correctness)", "", "", "", ledger.eps_cor])
-    rows.append(["eps_sec (secrecy)", "", "", "", ledger.eps_sec])
-    rows.append(["eps_total", "", "", "", ledger.eps_total])
-    return table(rows, ["epsilon term", "role", "weight", "epsilon", "contribution"])
+    rows = [[t.name, t.role.value, t.charge.value, t.weight, t.epsilon, t.contribution] for t in ledger.terms]
+    rows.append(["eps_cor (correctness)", "", "", "", "", ledger.eps_cor])
+    rows.append(["eps_sec (secrecy)", "", "", "", "", ledger.eps_sec])
+    rows.append(["eps_total", "", "", "", "", ledger.eps_total])
+    return table(rows, ["epsilon term", "role", "charged as", "weight", "epsilon", "contribution"])
 
 
 def _unit(name: str) -> str:
@@ -118,6 +118,8 @@ def _unit(name: str) -> str:
         return "fraction"
     if name.startswith("note"):
         return "flag"
+    if name.endswith("_bits"):
+        return "bits"
     return "count"
 
 

@@ -250,13 +250,17 @@ def to_html(report) -> str:
                  + "</section>")
 
     # ledger
-    led_rows = [[t["name"], t["role"], t["weight"], t["epsilon"], t["contribution"], t.get("description", "")]
-                for t in exp["ledger"]]
-    led_rows += [["eps_cor", "correctness", "", "", exp["eps_cor"], "sum of correctness contributions"],
-                 ["eps_sec", "secrecy", "", "", exp["eps_sec"], "sum of secrecy contributions"],
-                 ["eps_total", "", "", "", exp["eps_total"], "eps_cor + eps_sec"]]
+    led_rows = [[t["name"], t["role"], t.get("charge", ""), t["weight"], t["epsilon"], t["contribution"],
+                 t.get("description", "")] for t in exp["ledger"]]
+    led_rows += [["eps_cor", "correctness", "", "", "", exp["eps_cor"], "sum of correctness contributions"],
+                 ["eps_sec", "secrecy", "", "", "", exp["eps_sec"], "sum of secrecy contributions"],
+                 ["eps_total", "", "", "", "", exp["eps_total"], "eps_cor + eps_sec"]]
     parts.append("<section>" + h2("Epsilon ledger")
-                 + _table("ledger-table", ["term", "role", "weight", "epsilon", "contribution", "covers"], led_rows)
+                 + "<p>charged as: failure = a failure probability charged once per event; smoothing = a smoothing "
+                   "parameter whose event must fail with probability at most its square, costing twice itself per "
+                   "appearance; hashing = the leftover-hash term. weight x epsilon = contribution.</p>"
+                 + _table("ledger-table", ["term", "role", "charged as", "weight", "epsilon", "contribution",
+                                           "covers"], led_rows)
                  + "</section>")
 
     # sweeps and figures

@@ -56,12 +56,13 @@ def report_latex(report) -> str:
     led = exp["ledger"]
     eps = format_column([float(t["epsilon"]) for t in led], "epsilon")
     con = format_column([float(t["contribution"]) for t in led] + [float(exp["eps_total"])], "epsilon")
-    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{llrrr}", r"\toprule",
-             r"term & role & weight & epsilon & contribution \\", r"\midrule"]
+    lines = [r"\begin{table}[htbp]", r"\centering", r"\small", r"\begin{tabular}{lllrrr}", r"\toprule",
+             r"term & role & charged as & weight & epsilon & contribution \\", r"\midrule"]
     for t, e, c in zip(led, eps, con):
-        lines.append(f"{latex_escape(t['name'])} & {latex_escape(t['role'])} & {int(t['weight'])} & "
+        lines.append(f"{latex_escape(t['name'])} & {latex_escape(t['role'])} & {latex_escape(t.get('charge', ''))} & "
+                     f"{int(t['weight'])} & "
                      f"\\num{{{spell(e, 'tex')}}} & \\num{{{spell(c, 'tex')}}} \\\\")
-    lines += [r"\midrule", f"total &  &  &  & \\num{{{spell(con[-1], 'tex')}}} \\\\", r"\bottomrule",
+    lines += [r"\midrule", f"total &  &  &  &  & \\num{{{spell(con[-1], 'tex')}}} \\\\", r"\bottomrule",
               r"\end{tabular}", r"\caption{Epsilon ledger}", r"\label{tab:finitekey-ledger}", r"\end{table}"]
     out.append("\n".join(lines))
     if r.sweep is not None:
