@@ -1,4 +1,5 @@
-"""``finitekey blocksize [SCENARIO.toml] --target positive|bits=L|fraction=F`` -- smallest block for a target."""
+"""``finitekey blocksize [SCENARIO.toml] --target positive|bits=L|fraction=F [--unit pulses|key-detections]`` --
+smallest block for a target."""
 
 from __future__ import annotations
 
@@ -19,13 +20,17 @@ def _args(p: argparse.ArgumentParser) -> None:
                    help="'positive' (any key), 'bits=L' (at least L key bits) or 'fraction=F' (F of the "
                         "asymptotic rate)")
     p.add_argument("--statistics", default=None, help=statistics_help(design=True))
+    p.add_argument("--unit", default=None,
+                   help="decoy-bb84: give the size in 'pulses' or 'key-detections' (expected key-basis detections "
+                        "of the smallest block, which is still closed after a fixed number of pulses); default: "
+                        "the unit of the scenario's [block]. BB84: the unit of its [budget]")
     p.add_argument("--json", action="store_true", help="machine-readable output")
 
 
 def _run(args) -> int:
     target = BlockTarget.parse(args.target)
     proto, sc = load_scenario(args.scenario)
-    res = proto.blocksize(sc, target, args.statistics)
+    res = proto.blocksize(sc, target, args.statistics, unit=args.unit)
     if args.json:
         print(to_json(json_document(res.to_dict())))
         return 0
@@ -33,6 +38,8 @@ def _run(args) -> int:
             ["status", res.status.text(), ""]]
     if getattr(res, "resolution", 1) > 1:
         rows.append(["search resolution", fmt(int(res.resolution)), res.size_kind])
+    if res.size_kind == "key_detections":   # the block itself is a number of pulses: show it
+        rows.append(["pulses per block", fmt(int(res.design.expected_counts["pulses"])), "pulses"])
     print(table(rows, ["quantity", "value", "unit"]))
     print("\nDesign at that size:")
     print(render_design(res.design, args.scenario))

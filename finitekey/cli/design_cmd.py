@@ -98,8 +98,9 @@ def render_design(d, source: str | None = None) -> str:
             rows.append([label, fmt(d.diagnostics[k]), unit])
     title = f"Design ({d.protocol}, statistics {d.expected.statistics})" if d.status.key else \
         f"No key ({d.protocol}, statistics {d.expected.statistics})"
-    return "\n".join(head + [title, table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:",
-                             render_ledger(d.expected.ledger)])
+    notes = ["", *("Note: " + n for n in getattr(d, "notes", ()))] if getattr(d, "notes", ()) else []
+    return "\n".join(head + [title, table(rows, ["quantity", "value", "unit"])] + notes
+                     + ["", "Epsilon ledger:", render_ledger(d.expected.ledger)])
 
 
 def render_reach(r) -> str:

@@ -167,13 +167,40 @@ class DesignProblem:
     # ---- objective ------------------------------------------------------------------------------------
     def key_length_float(self, theta):
         """Continued key length (bits, float, may be negative) at the expected counts; vectorised (dim, m)."""
+        return self._key_and_pulses(theta)[0]
+
+    def pulses_float(self, theta):
+        """Pulses per block at ``theta``: the scenario's, or (``key_detections`` given) the number whose
+        expected key-basis detections equal the target, ``T / (q_X^2 live sum_k p_k D_k)``; vectorised."""
+        return self._key_and_pulses(theta)[1]
+
+    def objective(self, theta):
+        """What the design maximises (vectorised): the continued key length per block when the scenario fixes
+        the pulses; with ``key_detections``, the key per pulse sent, as bits per :meth:`reference_pulses`
+        pulses where positive and the continued key length where not (continuous at 0, so there is still no
+        zero plateau; sending more pulses cannot make a negative key look better)."""
+        ell, N = self._key_and_pulses(theta)
+        if self.scenario.pulses is not None:
+            return ell
+        return np.where(ell > 0, ell * (self.reference_pulses() / N), ell)
+
+    def reference_pulses(self) -> float:
+        """The scenario's pulses; with ``key_detections``, a typical block for them (``mu = 0.5``, ``q_X^2 =
+        0.5``), used only to scale the objective and pick starting points."""
+        sc = self.scenario
+        if sc.pulses is not None:
+            return sc.pulses
+        d = float(sc.model.click_probability(0.5))
+        return sc.key_detections / (0.5 * d * float(sc.model.live_fraction(d)))
+
+    def _key_and_pulses(self, theta):
         mu, p, qx, split = self.decode(theta)
         sc = self.scenario
         model = sc.model
-        N = sc.pulses
         d = model.click_probability(mu)
         e = model.error_probability(mu)
         live = model.live_fraction((p * d).sum(axis=0))
+        N = sc.pulses if sc.pulses is not None else sc.key_detections / ((p * d).sum(axis=0) * (qx * qx * live))
         wx = N * p * (qx * qx * live)
         wz = N * p * ((1 - qx) ** 2 * live)
         kd, ke, td, te = wx * d, wx * e, wz * d, wz * e
@@ -232,7 +259,7 @@ class DesignProblem:
                + np.log(2 / sc.eps_cor)) / _LN2
         # s1 < 0 is charged directly (s1 (1 - h) would turn positive when both factors are negative)
         single = np.maximum(s1, 0.0) * (1 - h) + np.minimum(s1, 0.0)
-        return s0 + single - leak - pen
+        return s0 + single - leak - pen, N * np.ones_like(qx)
 
     def bounds(self) -> list:
         """Box for theta: intensities within physical ranges (mu2 - mu3 in [1e-4, 1], mu1 - mu2 - mu3 in
@@ -247,20 +274,20 @@ class DesignProblem:
     def scale(self) -> float:
         """Typical size of the key length (bits) used to normalise the objective."""
         sc = self.scenario
-        return max(sc.pulses * sc.model.eta * 0.1, 1.0)
+        return max(self.reference_pulses() * sc.model.eta * 0.1, 1.0)
 
     def negative_with_gradient(self, x, step=1e-6):
         """(-objective, -gradient) with a batched forward-difference gradient; objective normalised."""
         pts = np.repeat(x[:, None], len(x) + 1, axis=1)
         pts[np.arange(len(x)), np.arange(1, len(x) + 1)] += step
-        vals = self.key_length_float(pts) / self.scale()
+        vals = self.objective(pts) / self.scale()
         g = (vals[1:] - vals[0]) / step
         return -float(vals[0]), -g
 
     def starts(self) -> list:
         """Physically sensible starting points, scaled with the expected number of detections."""
         sc = self.scenario
-        detections = sc.pulses * sc.model.eta * 0.5
+        detections = self.reference_pulses() * sc.model.eta * 0.5
         few = detections < 1e6
         out = []
         if self.k == 3:
@@ -326,12 +353,12 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
     positive key has been found."""
     if problem.dim == 0:
         x = np.zeros(0)
-        return x, float(problem.key_length_float(x[:, None])[0])
+        return x, float(problem.objective(x[:, None])[0])
     box = problem.bounds()
     lo, hi = np.array([b[0] for b in box]), np.array([b[1] for b in box])
     cand = np.clip(np.array(starts if starts is not None else problem.starts()), lo, hi)
     with np.errstate(all="ignore"):
-        screen = problem.key_length_float(cand.T)
+        screen = problem.objective(cand.T)
     screen = np.where(np.isfinite(screen), screen, -np.inf)
     order = np.argsort(-screen)[:refine]
     best_x, best_v = cand[order[0]], float(screen[order[0]]) / problem.scale()
@@ -349,7 +376,7 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
     if warm is not None:
         # warm start from a neighbouring problem (nearby distance or block size): follow it locally
         x = _local(problem, np.clip(np.asarray(warm, dtype=float), lo, hi), box)
-        v = float(problem.key_length_float(x[:, None])[0]) / problem.scale()
+        v = float(problem.objective(x[:, None])[0]) / problem.scale()
         if alternatives is not None:
             alternatives.append(x)
         if v > best_v:
@@ -378,14 +405,14 @@ def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
     optimum, so the path stays on the key-giving branch as long as one exists.
     """
     sc = problem.scenario
-    far = DesignProblem(replace(sc, pulses=sc.pulses * 1e3), problem.statistics)
+    far = DesignProblem(_scaled(sc, 1e3), problem.statistics)
     x, v = optimise(far, refine=1, continuation=False)
     if v <= 0:          # not even a 1000 times larger block gives a key: none here
         return best_x, best_v
     for factor in (300.0, 100.0, 30.0, 10.0, 3.0, 1.7, 1.0):
-        step = problem if factor == 1.0 else DesignProblem(replace(sc, pulses=sc.pulses * factor), problem.statistics)
+        step = problem if factor == 1.0 else DesignProblem(_scaled(sc, factor), problem.statistics)
         x = _local(step, x, box)
-    v = float(problem.key_length_float(x[:, None])[0]) / problem.scale()
+    v = float(problem.objective(x[:, None])[0]) / problem.scale()
     if alternatives is not None:
         # the end of the key-giving branch: its certified length may be positive even where the (looser)
         # float objective is not, so the caller evaluates it too
@@ -395,11 +422,44 @@ def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
     return best_x, best_v
 
 
+def _scaled(sc: D.DecoyScenario, factor: float) -> D.DecoyScenario:
+    """The scenario with its block size (pulses or key-basis detections) multiplied by ``factor``."""
+    if sc.pulses is not None:
+        return replace(sc, pulses=sc.pulses * factor)
+    return replace(sc, key_detections=max(1, int(round(sc.key_detections * factor))))
+
+
+#: Most pulses a block may have (the block.pulses domain).
+MAX_PULSES = 1e15
+
+
+def block_pulses(sc: D.DecoyScenario, mu, p, qx) -> float:
+    """Pulses per block at these parameters: the scenario's, or with ``key_detections`` the integer nearest
+    ``T / (expected key-basis detections per pulse)`` (so the expected key-basis detections are within half
+    a pulse's worth of ``T``).  This number is fixed before the block; the block is closed after it.
+
+    Raises
+    ------
+    InputError
+        If that number exceeds :data:`MAX_PULSES`.
+    """
+    if sc.pulses is not None:
+        return sc.pulses
+    per_pulse = math.fsum(sc.model.expected_counts(1.0, mu, p, qx).key_detections)
+    N = max(1.0, float(round(sc.key_detections / per_pulse)))
+    if not N <= MAX_PULSES:
+        raise InputError("block.key_detections", sc.key_detections,
+                         f"a number of key-basis detections expected within {MAX_PULSES:g} pulses (here "
+                         f"{per_pulse:.3g} per pulse)")
+    return N
+
+
 def _expected_block(problem: DesignProblem, theta) -> tuple:
     mu, p, qx, split = problem.decode(theta[:, None] if theta.ndim == 1 else theta)
     mu, p, qx = mu[:, 0], p[:, 0], float(qx[0])
     sc = problem.scenario
-    c = sc.model.expected_counts(sc.pulses, mu, p, qx)
+    N = block_pulses(sc, mu, p, qx)
+    c = sc.model.expected_counts(N, mu, p, qx)
     kd = [int(round(x)) for x in c.key_detections]
     ke = [min(int(round(x)), d) for x, d in zip(c.key_errors, kd)]
     td = [int(round(x)) for x in c.test_detections]
@@ -413,12 +473,19 @@ def _expected_block(problem: DesignProblem, theta) -> tuple:
         split_d = {k: v / tot for k, v in split_d.items()}
     block = D.DecoyBlock(tuple(float(x) for x in mu), tuple(float(x) for x in p), tuple(kd), tuple(ke), tuple(td),
                          tuple(te), leak, sc.eps_sec, sc.eps_cor, split_d)
-    return block, c, qx
+    return block, c, qx, N
 
 
 def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, starts=None,
            continuation: bool = True) -> DesignResult:
     """Optimise the free parameters of ``scenario`` for the largest expected key.
+
+    With ``scenario.pulses`` the block is that many pulses and the key per block is maximised.  With
+    ``scenario.key_detections`` the key per pulse sent (per second at a fixed repetition rate) is maximised
+    over blocks of ``N`` pulses, ``N`` chosen with the parameters so that the expected key-basis detections
+    equal the target (:func:`block_pulses`); the block is still closed after those ``N`` pulses, fixed before
+    it starts, never when a detection count is reached (the block rule).  ``N`` is reported as the parameter
+    ``block_pulses`` and in the expected counts, with the expected key-basis detections.
 
     Returns
     -------
@@ -439,25 +506,44 @@ def _best_certified(problem, theta, fval, alternatives) -> tuple:
         return res, theta
     for x in alternatives:
         other = _result(problem, x, float(problem.key_length_float(x[:, None])[0]))
-        if other.expected.secret_key_length > res.expected.secret_key_length:
+        # per pulse: the same order as the key length for a fixed number of pulses, and the design's aim
+        # when the number of pulses depends on the parameters (key_detections)
+        if other.secret_key_rate_per_signal > res.secret_key_rate_per_signal:
             res, theta = other, x
     return res, theta
 
 
 def _result(problem, theta, fval) -> DesignResult:
     sc = problem.scenario
-    block, counts, qx = _expected_block(problem, theta)
+    block, counts, qx, N = _expected_block(problem, theta)
     kl = D.key_length(block, problem.statistics)
-    rate = kl.secret_key_length / sc.pulses
+    rate = kl.secret_key_length / N
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
               "key_basis_probability": qx,
               "epsilon_split": kl.ledger.fractions()}
-    expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": sc.pulses}
+    expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": N,
+                "expected_key_detections": math.fsum(counts.key_detections)}
+    notes = ()
+    if sc.key_detections is not None:
+        params["block_pulses"] = int(N)
+        expected["key_detections_target"] = sc.key_detections
+        notes = (key_detections_note(N, sc.key_detections, expected["expected_key_detections"]),)
+        fval = float(problem.key_length_float(theta[:, None])[0])   # the optimiser's value is per pulse
     return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
-                        block_fill_time_s=sc.model.block_fill_time_s(sc.pulses), scenario=sc.as_dict(),
-                        diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl))
+                        block_fill_time_s=sc.model.block_fill_time_s(N), scenario=sc.as_dict(),
+                        diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl), notes=notes)
+
+
+def key_detections_note(pulses: float, target: float | None, expected: float) -> str:
+    """The statement every design or block size given in key-basis detections carries: how the block closes."""
+    aim = "" if target is None else f" (target {int(target)})"
+    return (f"The block is closed after N = {int(pulses)} pulses, a number fixed before the block starts and "
+            f"chosen with the design so that about {expected:.1f} key-basis detections are expected{aim}; it is "
+            "not closed when a number of detections is reached (blocks closed by detection quotas are not "
+            "covered by the analysis). The key length is certified at the rounded expected counts of those N "
+            "pulses; the detections of an actual block vary around them.")
 
 
 def _design_status(sc: D.DecoyScenario, kl) -> Status:
@@ -471,10 +557,7 @@ def _design_status(sc: D.DecoyScenario, kl) -> Status:
 
 
 def _at_distance(scenario, L):
-    return D.DecoyScenario(scenario.model.at_distance(L), scenario.pulses, scenario.eps_sec, scenario.eps_cor,
-                           scenario.ec_efficiency, scenario.intensity_count, scenario.intensities,
-                           scenario.intensity_probabilities, scenario.key_basis_probability,
-                           scenario.weakest_intensity)
+    return replace(scenario, model=scenario.model.at_distance(L))
 
 
 def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tolerance_km: float = 0.1,
@@ -537,12 +620,33 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
     return ReachResult(lo, statistics, tolerance_km, max_km, KEY, at_reach=best)
 
 
+def block_unit(unit, scenario: D.DecoyScenario) -> str:
+    """The unit of a block size: ``unit`` (``"pulses"`` or ``"key_detections"``; ``"key-detections"`` is taken
+    as the latter), or the unit the scenario gives its block in when None.
+
+    Raises
+    ------
+    InputError
+        For any other unit.
+    """
+    if unit is None:
+        return scenario.size_kind
+    name = unit.replace("-", "_") if isinstance(unit, str) else unit
+    if name not in D.BLOCK_UNITS:
+        raise InputError("unit", unit, "pulses or key-detections (default: the unit of the scenario's [block])")
+    return name
+
+
 def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = D.DEFAULT_STATISTICS,
-              max_pulses: float = 1e15) -> BlockSizeResult:
+              max_pulses: float = MAX_PULSES, unit: str | None = None) -> BlockSizeResult:
     """Smallest number of pulses whose optimised design reaches ``target`` (bisection on log N).
 
-    ``fraction=F`` is a fraction of the infinite-decoy asymptotic rate with no sifting loss
-    (:func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate` with ``sifting=1``).
+    The search is always over the number of pulses ``N`` after which a block is closed (the block rule), with
+    the design re-optimised at each ``N``.  ``unit`` (default: the unit of the scenario's ``[block]``) says how
+    the answer is given: ``"pulses"``, that ``N``; ``"key_detections"``, the expected key-basis detections of
+    the design at that ``N`` (rounded up), i.e. the frame size of the smallest block reaching the target.  The
+    resolution is given in the same unit.  ``fraction=F`` is a fraction of the infinite-decoy asymptotic rate
+    with no sifting loss (:func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate` with ``sifting=1``).
 
     Parameters
     ----------
@@ -551,18 +655,21 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     statistics : str
     max_pulses : float
         Largest block tried.
+    unit : str or None
+        ``"pulses"`` or ``"key_detections"`` (``"key-detections"``); None: the scenario's unit.
 
     Returns
     -------
     BlockSizeResult
     """
+    unit = block_unit(unit, scenario)
     if target.kind is BlockTargetKind.RATE_FRACTION:
         asym, _ = D.optimal_gllp_rate(scenario.model, scenario.ec_efficiency, sifting=1.0)
         if asym <= 0:
             raise InputError("target", str(target), "a link with a positive asymptotic rate")
 
     def meets(N, warm=None):
-        sc = replace(scenario, pulses=float(N))
+        sc = scenario.with_pulses(N)
         prob = objective_problem(sc, statistics)
         alt = []
         theta, fval = optimise(prob, alternatives=alt, warm=warm)
@@ -579,7 +686,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     # bracket in half-decade steps from the scenario's own block size: downwards warm-started from the last
     # block that met the target (a continuation path in the block size), or upwards until one does
     top = math.log10(max_pulses)
-    x = min(math.log10(scenario.pulses), top)
+    x = min(math.log10(objective_problem(scenario, statistics).reference_pulses()), top)
     ok, _, th_hi = meets(10 ** x)
     if ok:
         hi = lo = x
@@ -611,7 +718,19 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     for _ in range(5):
         ok, res, th = meets(N, th_hi)
         if ok:
-            return BlockSizeResult(target=target, size=N, size_kind="pulses", design=res)
+            break
         N = int(math.ceil(N * 1.001))
-    raise ComputationError(f"target {target} met at {10 ** hi:.6g} pulses but not at the whole numbers of "
-                           "pulses just above it")
+    else:
+        raise ComputationError(f"target {target} met at {10 ** hi:.6g} pulses but not at the whole numbers of "
+                               "pulses just above it")
+    # sizes between the last failing block (10**lo pulses) and the answer were not tried; lo == hi when the
+    # search stopped at its lower end with a pass (nothing smaller tried)
+    shrink = 1.0 - 10 ** (lo - hi) if lo < hi else 1.0
+    if unit == "pulses":
+        return BlockSizeResult(target=target, size=N, size_kind="pulses", design=res,
+                               resolution=max(1, int(math.ceil(N * shrink))))
+    detections = res.expected_counts["expected_key_detections"]
+    size = int(math.ceil(detections))
+    design = replace(res, notes=res.notes + (key_detections_note(res.expected_counts["pulses"], None, detections),))
+    return BlockSizeResult(target=target, size=size, size_kind="key_detections", design=design,
+                           resolution=max(1, int(math.ceil(size * shrink))))

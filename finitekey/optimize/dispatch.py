@@ -26,7 +26,7 @@ def design(data, statistics=None):
     return proto.design(sc, statistics)
 
 
-def blocksize(data, target, statistics=None):
+def blocksize(data, target, statistics=None, unit=None):
     """Smallest block reaching ``target`` for a scenario mapping.
 
     Parameters
@@ -37,6 +37,9 @@ def blocksize(data, target, statistics=None):
         A :class:`~finitekey.protocols.BlockTarget` or its text form (``"positive"``, ``"bits=L"``,
         ``"fraction=F"``).
     statistics : str, optional
+    unit : str, optional
+        The unit of the answer (decoy-bb84: ``"pulses"`` or ``"key_detections"``; BB84: the unit of its
+        budget); default: the unit the scenario gives its block size in.
 
     Returns
     -------
@@ -44,4 +47,4 @@ def blocksize(data, target, statistics=None):
     """
     proto, sc = scenario_from_dict(data)
     t = target if isinstance(target, protocols.BlockTarget) else protocols.BlockTarget.parse(target)
-    return proto.blocksize(sc, t, statistics)
+    return proto.blocksize(sc, t, statistics, unit=unit)

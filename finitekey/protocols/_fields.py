@@ -13,7 +13,7 @@ from ..domains import PROBABILITY, SECURITY_EPSILON
 from ..errors import InputError
 
 __all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "security_targets", "security_fields_with", "split_eps_total",
-           "read_label"]
+           "read_label", "one_of"]
 
 #: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
 DEFAULT_EPS_COR_SHARE = 0.1
@@ -104,3 +104,31 @@ def read_label(given: dict, field: str = "label"):
     if isinstance(label, bool) or not isinstance(label, (str, int)):
         raise InputError(field, label, "a text identifier (a string)")
     return str(label)
+
+
+def one_of(given: dict, names: tuple, prefix: str = "", allowed: str = "") -> str:
+    """The one field of ``names`` (two alternatives) present in ``given``.
+
+    Parameters
+    ----------
+    given : dict
+        The section as given.
+    names : tuple of str
+        The two alternative field names, the usual one first.
+    prefix : str
+        Prefix of the field names in messages, e.g. ``"block."``.
+    allowed : str
+        What the first field holds, for the message when neither is given.
+
+    Raises
+    ------
+    InputError
+        Naming both fields when both are given (the second one as the field) or neither is (the first).
+    """
+    first, second = (prefix + n for n in names)
+    present = [n for n in names if n in given]
+    if len(present) == 2:
+        raise InputError(second, given[names[1]], f"absent when {first} is given (give one of {first} or {second})")
+    if not present:
+        raise InputError(first, None, (allowed + " " if allowed else "") + f"(or give {second} instead)")
+    return present[0]

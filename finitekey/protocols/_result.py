@@ -303,6 +303,9 @@ class DesignResult:
     status : Status
         Key, or no key with the reason.  When not given: key if ``expected`` has one, else
         :attr:`NoKeyReason.NO_POSITIVE_DESIGN` with the expected result's reason as detail.
+    notes : tuple of str
+        Statements needed to read the design correctly (e.g. how a block designed for a number of key-basis
+        detections is closed); shown with the design in every output.
     """
 
     protocol: str
@@ -317,6 +320,7 @@ class DesignResult:
     asymptotic_rate_per_detection: float | None = None
     diagnostics: dict = field(default_factory=dict)
     status: Status | None = None
+    notes: tuple = ()
 
     def __post_init__(self):
         has_key = self.expected.secret_key_length > 0
@@ -361,6 +365,7 @@ class DesignResult:
             "scenario": self.scenario,
             "expected": self.expected.to_dict(),
             "diagnostics": _finite(self.diagnostics),
+            "notes": list(self.notes),
         }
         if not self.status.key:
             out["parameters_tried"] = dict(self.parameters)
@@ -447,7 +452,8 @@ class BlockSizeResult:
     size : int
         Smallest block size (in ``size_kind`` units) that reaches the target.
     size_kind : str
-        ``"detections"``, ``"signals"`` or ``"pulses"``.
+        ``"detections"``, ``"signals"`` (BB84), ``"pulses"`` or ``"key_detections"`` (decoy-state BB84: the
+        expected key-basis detections of the smallest block, which is still closed after a number of pulses).
     design : DesignResult
         The design at that size.
     resolution : int

@@ -947,22 +947,27 @@ def _meets(target: BlockTarget, ell: float, N: float, r_inf: float) -> bool:
     return ell >= target.value * r_inf * N
 
 
-def blocksize(scenario: BB84Scenario, target: BlockTarget, statistics=None, *, limit: float = 1e15
-              ) -> BlockSizeResult:
+def blocksize(scenario: BB84Scenario, target: BlockTarget, statistics=None, *, limit: float = 1e15,
+              unit: str | None = None) -> BlockSizeResult:
     """Smallest block (detections, or signals for a signal budget) whose designed key reaches ``target``.
 
     A float search over sizes (with the design re-optimised at each size) brackets the answer; a bisection on
     certified designs (warm-started from the design at the float answer) then fixes it to a relative
-    resolution of 1e-3.  The size reported always passes with the design reported.
+    resolution of 1e-3.  The size reported always passes with the design reported.  ``unit`` may only repeat
+    the unit of the scenario's budget (``"detections"`` or ``"signals"``): the size is given in it.
 
     Raises
     ------
     InputError
-        If the QBER is at or above the threshold where the asymptotic rate vanishes.
+        If the QBER is at or above the threshold where the asymptotic rate vanishes, or ``unit`` is not the
+        budget's unit.
     ComputationError
         If the target is not reached below ``limit``.
     """
     sc = scenario
+    if unit is not None and unit != sc.size_kind:
+        raise InputError("unit", unit, f"'{sc.size_kind}' for this BB84 scenario (a BB84 block size is given in "
+                                       "the unit of its [budget]: detections or signals)")
     stats = Statistics.parse(statistics) if statistics is not None else sc.statistics
     r_inf = asymptotic_rate(sc)
     if r_inf <= 0:

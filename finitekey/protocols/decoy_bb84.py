@@ -69,7 +69,7 @@ from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
 from ._batch import map_in_chunks
 from ._block_rule import parse_closure
-from ._fields import SECURITY_FIELDS, read_label, security_fields_with, security_targets
+from ._fields import SECURITY_FIELDS, one_of, read_label, security_fields_with, security_targets
 from ._registry import register
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
@@ -970,7 +970,7 @@ _SCENARIO_SECTIONS = {
     "detector": ("efficiency", "dark_count_probability", "afterpulse_probability", "misalignment_error",
                  "dead_time_s"),
     "source": ("repetition_rate_hz",),
-    "block": ("pulses",),
+    "block": ("pulses", "key_detections"),
     "security": SECURITY_FIELDS,
     "reconciliation": ("efficiency",),
 }
@@ -978,12 +978,16 @@ _REQUIRED = {
     "protocol": ("name",),
     "link": ("distance_km", "fiber_loss_db_per_km"),
     "detector": ("efficiency", "dark_count_probability"),
-    "block": ("pulses",),
+    "block": (),      # pulses or key_detections: checked by one_of
     "security": (),   # eps_sec and eps_cor, or eps_total: checked by security_targets
     "reconciliation": ("efficiency",),
 }
 _EC_EFF = Domain(1.0, 10.0)
 _PULSES = Domain(1, 1e15, integer=True)   # a count; must stay below 2**50 for the exact tails
+#: Key-basis detections per block (a design target; the block is still closed after a number of pulses).
+_KEY_DETECTIONS = Domain(1, 1e15, integer=True)
+#: The units a decoy block size is given in (scenario field names; ``size_kind`` of a block-size result).
+BLOCK_UNITS = ("pulses", "key_detections")
 _COUNT_K = Domain(2, 8, integer=True)
 
 
@@ -994,8 +998,8 @@ class DecoyScenario:
     Attributes
     ----------
     model : LinkModel
-    pulses : float
-        Pulses sent per block ``N``.
+    pulses : float or None
+        Pulses sent per block ``N``; None when the scenario gives ``key_detections`` instead.
     eps_sec, eps_cor : float
     ec_efficiency : float
         Reconciliation efficiency ``f >= 1``: leakage ``f n_X h(E_X)``.
@@ -1011,10 +1015,14 @@ class DecoyScenario:
     security : tuple of (str, float) or None
         The ``[security]`` section as given (eps_sec and eps_cor, or eps_total with eps_cor_share), so that
         a copy with one field changed keeps the form the user chose.
+    key_detections : int or None
+        Expected key-basis detections per block (the post-processing frame) instead of ``pulses``.  The block
+        is still closed after a number of pulses fixed before it (the block rule); the design chooses that
+        number together with the free parameters so that about this many key-basis detections are expected.
     """
 
     model: LinkModel
-    pulses: float
+    pulses: float | None
     eps_sec: float
     eps_cor: float
     ec_efficiency: float
@@ -1025,6 +1033,20 @@ class DecoyScenario:
     weakest_intensity: float = 2e-4
     label: str | None = None
     security: tuple | None = None
+    key_detections: int | None = None
+
+    def __post_init__(self):
+        if (self.pulses is None) == (self.key_detections is None):
+            raise ValueError("DecoyScenario: give exactly one of pulses and key_detections")
+
+    @property
+    def size_kind(self) -> str:
+        """The unit the scenario gives its block size in: ``"pulses"`` or ``"key_detections"``."""
+        return "pulses" if self.pulses is not None else "key_detections"
+
+    def with_pulses(self, pulses: float) -> "DecoyScenario":
+        """Copy with a block of ``pulses`` pulses (and no key-detection target)."""
+        return replace(self, pulses=float(pulses), key_detections=None)
 
     def as_dict(self) -> dict:
         """JSON-ready mapping in the scenario-file layout (``parse_scenario`` reads it back).
@@ -1046,7 +1068,8 @@ class DecoyScenario:
         src = {} if self.model.source.repetition_rate_hz is None else {
             "repetition_rate_hz": self.model.source.repetition_rate_hz}
         out = {"protocol": proto, "link": asdict(self.model.link), "detector": asdict(self.model.detector),
-               "block": {"pulses": self.pulses},
+               "block": ({"pulses": self.pulses} if self.pulses is not None
+                         else {"key_detections": int(self.key_detections)}),
                "security": dict(self.security) if self.security else {"eps_sec": self.eps_sec, "eps_cor": self.eps_cor},
                "reconciliation": {"efficiency": self.ec_efficiency}}
         if src:
@@ -1105,11 +1128,16 @@ def parse_scenario(data: dict) -> DecoyScenario:
     det = Detector(dt["efficiency"], dt["dark_count_probability"], dt.get("afterpulse_probability", 0.0),
                    dt.get("misalignment_error", 0.0), dt.get("dead_time_s", 0.0))
     src = Source(data.get("source", {}).get("repetition_rate_hz"))
-    pulses = float(_PULSES.check_scalar("block.pulses", data["block"]["pulses"]))
+    bl = data["block"]
+    pulses = key_detections = None
+    if one_of(bl, BLOCK_UNITS, "block.", "pulses sent per block, " + _PULSES.describe()) == "pulses":
+        pulses = float(_PULSES.check_scalar("block.pulses", bl["pulses"]))
+    else:
+        key_detections = int(_KEY_DETECTIONS.check_scalar("block.key_detections", bl["key_detections"]))
     eps_sec, eps_cor = security_targets(data["security"], "security.")
     f = float(_EC_EFF.check_scalar("reconciliation.efficiency", data["reconciliation"]["efficiency"]))
     return DecoyScenario(LinkModel(link, det, src), pulses, eps_sec, eps_cor, f, k, mu, probs, qx, weakest, label,
-                         tuple(data["security"].items()))
+                         tuple(data["security"].items()), key_detections)
 
 
 def default_scenario() -> DecoyScenario:
@@ -1139,6 +1167,8 @@ def with_field(scenario: DecoyScenario, dotted_name: str, value) -> DecoyScenari
         d["security"] = security_fields_with(d["security"], scenario.eps_sec, scenario.eps_cor, key, value)
     else:
         d.setdefault(sec, {})[key] = value
+    if sec == "block":   # pulses and key_detections are alternatives: setting one drops the other
+        d["block"] = {key: value}
     if sec == "protocol" and key == "weakest_intensity":
         d["protocol"].pop("intensities", None)
     return parse_scenario(d)
@@ -1195,14 +1225,17 @@ class DecoyBB84:
         return decoy_design.design(scenario, _check_design_statistics(statistics))
 
     @with_one_blas_thread
-    def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None):
-        """Smallest number of pulses whose design reaches ``target``.
+    def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None,
+                  unit: str | None = None):
+        """Smallest block whose design reaches ``target``.
 
         Parameters
         ----------
         scenario : DecoyScenario
         target : BlockTarget
         statistics : str, optional
+        unit : str, optional
+            ``"pulses"`` or ``"key_detections"`` (``"key-detections"``); default: the scenario's unit.
 
         Returns
         -------
@@ -1210,7 +1243,7 @@ class DecoyBB84:
             See :func:`finitekey.optimize.decoy_design.blocksize`; runs with one BLAS thread.
         """
         from ..optimize import decoy_design
-        return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics))
+        return decoy_design.blocksize(scenario, target, _check_design_statistics(statistics), unit=unit)
 
     @with_one_blas_thread
     def reach(self, scenario: DecoyScenario, statistics: str | None = None) -> ReachResult:
