@@ -54,6 +54,10 @@ def _sigmoid(x):
     return 1.0 / (1.0 + np.exp(-x))
 
 
+#: Most pulses a block may have (the block.pulses domain).
+MAX_PULSES = 1e15
+
+
 @dataclass(frozen=True)
 class DesignProblem:
     """The float objective of one scenario and statistics method, over an unconstrained vector."""
@@ -178,11 +182,14 @@ class DesignProblem:
         """What the design maximises (vectorised): the continued key length per block when the scenario fixes
         the pulses; with ``key_detections``, the key per pulse sent, as bits per :meth:`reference_pulses`
         pulses where positive and the continued key length where not (continuous at 0, so there is still no
-        zero plateau; sending more pulses cannot make a negative key look better)."""
+        zero plateau; sending more pulses cannot make a negative key look better), less a steep penalty where
+        the block would need more than :data:`MAX_PULSES` pulses (which no block may have: without it, a search
+        finding no key could drift to a vanishing key-basis probability)."""
         ell, N = self._key_and_pulses(theta)
         if self.scenario.pulses is not None:
             return ell
-        return np.where(ell > 0, ell * (self.reference_pulses() / N), ell)
+        over = np.log10(np.maximum(N / MAX_PULSES, 1.0))
+        return np.where(ell > 0, ell * (self.reference_pulses() / N), ell) - 10.0 * self.scale() * over
 
     def reference_pulses(self) -> float:
         """The scenario's pulses; with ``key_detections``, a typical block for them (``mu = 0.5``, ``q_X^2 =
@@ -429,10 +436,6 @@ def _scaled(sc: D.DecoyScenario, factor: float) -> D.DecoyScenario:
     return replace(sc, key_detections=max(1, int(round(sc.key_detections * factor))))
 
 
-#: Most pulses a block may have (the block.pulses domain).
-MAX_PULSES = 1e15
-
-
 def block_pulses(sc: D.DecoyScenario, mu, p, qx) -> float:
     """Pulses per block at these parameters: the scenario's, or with ``key_detections`` the integer nearest
     ``T / (expected key-basis detections per pulse)`` (so the expected key-basis detections are within half
@@ -505,7 +508,10 @@ def _best_certified(problem, theta, fval, alternatives) -> tuple:
     if res.expected.secret_key_length > 0:
         return res, theta
     for x in alternatives:
-        other = _result(problem, x, float(problem.key_length_float(x[:, None])[0]))
+        try:
+            other = _result(problem, x, float(problem.key_length_float(x[:, None])[0]))
+        except InputError:   # an alternative whose block would exceed MAX_PULSES pulses (key_detections)
+            continue
         # per pulse: the same order as the key length for a fixed number of pulses, and the design's aim
         # when the number of pulses depends on the parameters (key_detections)
         if other.secret_key_rate_per_signal > res.secret_key_rate_per_signal:
