@@ -195,7 +195,7 @@ def blocksize_plot(table: SweepTable, title: str | None = None, size=None):
         raise InputError("--kind", "blocksize", "a block-size sweep (internal: run the sweep in blocksize mode)")
     curves = series(table, "block_size")
     kinds = {r.get("block_size_kind") for r in table.rows if r.get("block_size_kind")}
-    unit = kinds.pop() if len(kinds) == 1 else "block size units"
+    unit = kinds.pop().replace("_", " ") if len(kinds) == 1 else "block size units"
     name = title if title is not None else _title(table, f"smallest block for target '{table.target}'")
     return blocksize_figure(curves, axis_label(table.axes[0].field), ylabel=f"smallest block ({unit})",
                             title=name, logx=use_log(table.axes[0].values), logy=True, note=_note(table), size=size)

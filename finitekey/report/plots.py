@@ -115,7 +115,8 @@ _UNITS = (("_db_per_km", "dB/km"), ("_km", "km"), ("_db", "dB"), ("_hz", "Hz"), 
           ("_ns", "ns"), ("_ps", "ps"), ("_s", "s"), ("_m", "m"))
 
 _NAMES = {"qber": "QBER", "pulses": "pulses per block", "signals": "signals per block",
-          "detections": "detections per block", "distance_km": "distance", "size": "block size"}
+          "detections": "detections per block", "key_detections": "key-basis detections per block",
+          "distance_km": "distance", "size": "block size"}
 
 
 def axis_label(field_name: str, quantity: str | None = None) -> str:
