@@ -477,3 +477,15 @@ def test_stream_line_with_a_repeated_field_is_refused():
     answers = [json.loads(x) for x in out.getvalue().splitlines()]
     assert answers[0]["secret_key_length"] > 0
     assert answers[1]["line"] == 2 and answers[1]["field"] == "test_errors" and "once" in answers[1]["error"]
+
+
+@pytest.mark.parametrize("argv, head", [
+    (["keylength", "BLOCK", "--statistics", "foo"], "--statistics = 'foo' is not allowed"),
+    (["bound", "hoeffding", "n=10", "--eps", "2"], "--eps = '2' is not allowed"),
+    (["bound", "hoeffding", "n=10", "--deviation", "-1"], "--deviation = '-1' is not allowed"),
+    (["blocksize", "--target", "bits=-1"], "--target = 'bits=-1' is not allowed"),
+])
+def test_option_values_are_named_by_the_option_as_typed(tmp_path, capsys, argv, head):
+    block = write(tmp_path, "b.json", json.dumps(BB84_BLOCK))
+    argv = [block if a == "BLOCK" else a for a in argv]
+    one_line_error(*run(capsys, argv), head)

@@ -109,6 +109,26 @@ def one_line_usage_error(message: str) -> str:
     return f"{name}: {rest}"
 
 
+def as_option(exc: InputError, args) -> InputError:
+    """Name an API field by the option that gave it (``statistics`` -> ``--statistics``), with the value as typed.
+
+    The API names its parameters (``statistics``, ``eps``, ``target``); when the bad value is exactly what an
+    option of this command carried, the message names the option the user wrote instead.
+    """
+    given = getattr(args, str(exc.field), None)
+    if not isinstance(given, str) or str(exc.field).startswith("-"):
+        return exc
+    same = given == exc.value
+    if not same:
+        try:
+            same = float(given) == float(exc.value)
+        except (TypeError, ValueError):
+            same = False
+    if not same:
+        return exc
+    return InputError("--" + str(exc.field).replace("_", "-"), given, exc.allowed)
+
+
 def load_subcommand(entry: SubCommand):
     """Import the module of one sub-command and return its command object (``NAME``, ``add_arguments``, ``run``).
 
@@ -189,6 +209,7 @@ def main(argv=None) -> int:
         with guarded_stdout():  # output errors (disk full) become one line; flushed here, not at exit
             return int(args._run(args) or 0)
     except InputError as exc:
+        exc = as_option(exc, args)
         print(f"finitekey {args.command}: error: {exc}", file=sys.stderr)
         return 2
     except ComputationError as exc:

@@ -76,9 +76,14 @@ def _eval_run(args) -> int:
             enc = b.deviation_certified(eps, **params)
             out["deviation_certified"] = [enc.lo, enc.hi]
     else:
-        dev = _number(b.deviation_parameter.name, args.deviation)
+        dev = _number("--deviation", args.deviation)
         out["deviation"] = dev
-        out["eps"] = float(b.failure_probability(dev, **params))
+        try:
+            out["eps"] = float(b.failure_probability(dev, **params))
+        except InputError as exc:  # the bound names its deviation parameter; the user typed --deviation
+            if exc.field == b.deviation_parameter.name and exc.value == dev:
+                raise InputError("--deviation", args.deviation, exc.allowed) from None
+            raise
         if args.dps is not None:
             out["eps_mp"] = mpmath.nstr(b.failure_probability_mp(dev, dps=args.dps, **params), args.dps)
         if args.certified:
