@@ -293,3 +293,13 @@ def test_cli_table_varies_key_detections(tmp_path, capsys):
         assert r["design"]["scenario"]["block"] == {"key_detections": r["point"]["block.key_detections"]}
     assert math.isclose(rows[1]["design"]["expected_counts"]["pulses"] / rows[0]["design"]["expected_counts"]["pulses"],
                         10.0, rel_tol=1e-3)   # fixed parameters: pulses scale with the target
+
+
+def test_report_lists_how_the_block_closes(tmp_path):
+    from finitekey.report.build import build_report
+    from finitekey.report.html import to_html
+    from finitekey.report.sweep import load_scenario
+    rep = build_report(load_scenario(_write(tmp_path, "key_detections = 1000000")), vary=[], statistics="hoeffding")
+    html = to_html(rep)
+    assert any("The block is closed after N = " in a for a in rep.assumptions)
+    assert "The block is closed after N = " in html and CAUTION in html

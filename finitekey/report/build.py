@@ -149,7 +149,9 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
         sweep=sweep,
         blocksize=bsweep,
         figures=tuple(figures),
-        assumptions=tuple(expected.get("assumptions", ())),
+        # a design's notes (e.g. how a block designed for key-basis detections is closed) are read with the
+        # assumptions they qualify
+        assumptions=tuple(expected.get("assumptions", ())) + tuple(d.get("notes", ())),
         references=tuple(expected.get("references", ())),
         provenance=provenance(loaded, command),
         notes=tuple(notes),
