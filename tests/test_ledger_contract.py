@@ -205,9 +205,45 @@ def test_review_small_block_is_not_overstated():
             rest = 1.0 - c - s
             if rest <= 0.002:
                 continue
-            split = {"count_estimation": c, "single_photon_smoothing": s, "chain_rule": rest * 0.6,
-                     "privacy_amplification": rest * 0.4}
+            chain = min(rest * 0.6, s)     # a chain-rule share above the smoothing share is refused
+            split = {"count_estimation": c, "single_photon_smoothing": s, "chain_rule": chain,
+                     "privacy_amplification": rest - chain}
             for stats in ("exact", "chernoff"):
                 r = D.key_length(D.parse_block({**data, "epsilon_split": split}), stats)
                 best = max(best, r.secret_key_length)
     assert best <= 157
+
+
+def test_split_giving_the_chain_rule_more_than_the_single_photon_smoothing_is_refused():
+    """Second review: the ledger is valid under either reading of which chain-rule slot doubles its smoothing
+    only when eps_ch <= eps_1 (both weight 4); a split breaking that is refused, naming the field."""
+    from finitekey.errors import InputError
+    split = {"count_estimation": 0.5, "single_photon_smoothing": 0.1, "chain_rule": 0.3,
+             "privacy_amplification": 0.1}
+    with pytest.raises(InputError, match="epsilon_split.chain_rule"):
+        D.key_length(D.parse_block({**_DECOY3, "epsilon_split": split}))
+
+
+def test_design_split_can_be_given_back_to_a_block():
+    """Second review: a two-intensity design reported the pinned eps_cor term among its split shares, which a
+    block's epsilon_split refuses.  The reported split covers the split terms only and is accepted back;
+    the block rebuilt from the design's rounded expected counts gets the design's certified key (same
+    ledger).  Reference: the design's own certified result."""
+    from finitekey.optimize import decoy_design as DD
+    sc = D.with_field(D.default_scenario(), "protocol.intensity_count", 2)
+    res = DD.design(sc, "exact")
+    split = res.parameters["epsilon_split"]
+    assert sorted(split) == sorted(D.SECRECY_TERMS)
+    assert split["chain_rule"] <= split["single_photon_smoothing"]
+    c = res.expected_counts
+    rnd = lambda xs: [int(round(x)) for x in xs]
+    kd, td = rnd(c["key_basis.detections"]), rnd(c["test_basis.detections"])
+    data = {"protocol": "decoy-bb84", "intensities": res.parameters["intensities"],
+            "intensity_probabilities": res.parameters["intensity_probabilities"],
+            "key_basis": {"detections": kd, "errors": [min(e, d) for e, d in zip(rnd(c["key_basis.errors"]), kd)]},
+            "test_basis": {"detections": td, "errors": [min(e, d) for e, d in zip(rnd(c["test_basis.errors"]), td)]},
+            "ec_leak_bits": int(c["ec_leak_bits"]), "eps_sec": sc.eps_sec, "eps_cor": sc.eps_cor,
+            "epsilon_split": split}
+    again = D.key_length(D.parse_block(data))
+    assert "undetected_correction_failure" in again.ledger
+    assert again.secret_key_length == res.expected.secret_key_length > 0

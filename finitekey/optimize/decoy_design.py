@@ -129,9 +129,11 @@ class DesignProblem:
             qx = np.full(m, sc.key_basis_probability)
         split = None
         if n_e:
-            share = _sigmoid(theta[i]) * (1 - _FIXED_SHARE)
-            split = np.vstack([share, (1 - _FIXED_SHARE) - share, np.full(m, _FIXED_SHARE * 2 / 3),
-                               np.full(m, _FIXED_SHARE / 3)])
+            # count share in (0, 1 - fixed - chain): the single-photon smoothing keeps at least the chain
+            # rule's share (key_length refuses a split that gives the chain rule more; proof note, section 7)
+            share = _sigmoid(theta[i]) * (1 - _FIXED_SHARE - _CHAIN_SHARE)
+            split = np.vstack([share, (1 - _FIXED_SHARE) - share, np.full(m, _CHAIN_SHARE),
+                               np.full(m, _FIXED_SHARE - _CHAIN_SHARE)])
         return mu, p, qx, split
 
     def encode(self, mu, p, qx, split=None):
@@ -165,6 +167,7 @@ class DesignProblem:
             out.append(math.log(qx / (1 - qx)))
         if n_e:
             c = 0.8 if split is None else split[0] / (split[0] + split[1])
+            c = min(c * (1 - _FIXED_SHARE) / (1 - _FIXED_SHARE - _CHAIN_SHARE), 1 - 1e-9)
             out.append(math.log(c / (1 - c)))
         return np.array(out)
 
@@ -213,14 +216,15 @@ class DesignProblem:
         kd, ke, td, te = wx * d, wx * e, wz * d, wz * e
         analysis = "three-intensity" if self.k == 3 else "two-intensity"
         n_count = D.count_events(self.k, analysis)
+        specs = D.term_specs(n_count, analysis)
+        w = [s.weight for s in specs[:4]]
+        # pinned terms (two intensities: eps_cor for an undetected correction failure) come off first
+        budget = sc.eps_sec - sum(s.weight * sc.eps_cor for s in specs if s.pinned is not None)
         if split is None:
-            eps = np.full(qx.shape, sc.eps_sec / D.REFERENCE_UNITS)
+            # one unit per event or appearance, as the certified ledger (eps_sec/21 for three intensities)
+            eps = np.full(qx.shape, budget / sum(w))
             eps_c = eps_s = eps_ch = eps_pa = eps
         else:
-            specs = D.term_specs(n_count, analysis)
-            w = [s.weight for s in specs[:4]]
-            # pinned terms (two intensities: eps_cor for an undetected correction failure) come off first
-            budget = sc.eps_sec - sum(s.weight * sc.eps_cor for s in specs if s.pinned is not None)
             eps_c, eps_s, eps_ch, eps_pa = (budget * split[j] / w[j] for j in range(4))
         eps_p = eps_s * eps_s    # the phase-error bound fails with probability at most the smoothing squared
         meth = self.statistics
@@ -324,6 +328,8 @@ class DesignProblem:
 #: penalties grow only logarithmically, so the optimum gives them little; the count-estimation /
 #: phase-error division of the rest is optimised.
 _FIXED_SHARE = 1.5e-3
+#: Of it, the chain rule's share (the rest goes to hashing).
+_CHAIN_SHARE = _FIXED_SHARE * 2 / 3
 
 
 def _default_split(k: int):
@@ -519,15 +525,22 @@ def _best_certified(problem, theta, fval, alternatives) -> tuple:
     return res, theta
 
 
+def _split_shares(ledger) -> dict:
+    """Shares of the split secrecy terms (pinned terms left out), in the form a block's epsilon_split takes."""
+    c = {n: ledger[n].contribution for n in D.SECRECY_TERMS}
+    tot = math.fsum(c.values())
+    return {n: v / tot for n, v in c.items()}
+
+
 def _result(problem, theta, fval) -> DesignResult:
     sc = problem.scenario
     block, counts, qx, N = _expected_block(problem, theta)
-    kl = D.key_length(block, problem.statistics)
+    kl = D.key_length(block, problem.statistics, check_worse_data=False)
     rate = kl.secret_key_length / N
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
               "key_basis_probability": qx,
-              "epsilon_split": kl.ledger.fractions()}
+              "epsilon_split": _split_shares(kl.ledger)}
     expected = {**counts.as_dict(), "ec_leak_bits": block.ec_leak_bits, "pulses": N,
                 "expected_key_detections": math.fsum(counts.key_detections)}
     notes = ()

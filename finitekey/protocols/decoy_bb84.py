@@ -446,6 +446,14 @@ def block_ledger(block: DecoyBlock, statistics: str, analysis: str) -> Ledger:
         return reference_ledger(block.eps_sec, block.eps_cor, n_count)
     led = allocate(block.eps_sec, block.eps_cor, term_specs(n_count, analysis), block.epsilon_split)
     led.failure_probability("single_photon_smoothing")   # its square must be a positive float
+    # The chain rule doubles the smoothing of one slot; we put the single-photon term there (proof note,
+    # section 7).  With eps_ch <= eps_1 the ledger also covers the other reading of the chain rule, so a
+    # split giving the chain rule more than the single-photon smoothing is refused.
+    if led.smoothing("chain_rule") > led.smoothing("single_photon_smoothing"):
+        fr = led.fractions()
+        raise InputError("epsilon_split.chain_rule", block.epsilon_split.get("chain_rule") if block.epsilon_split
+                         else fr["chain_rule"], "a share at most the single_photon_smoothing share "
+                         f"({fr['single_photon_smoothing']:.6g}): both have weight 4")
     return led
 
 
@@ -669,7 +677,7 @@ def _phase_error(method: str, est: dict, eps_p: float, prec: int):
 
 
 def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PREC,
-               analysis: str | None = None) -> KeyLengthResult:
+               analysis: str | None = None, check_worse_data: bool = True) -> KeyLengthResult:
     """Certified secret key length of an observed decoy-state block.
 
     Parameters
@@ -681,6 +689,10 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
         Bits of ball arithmetic.
     analysis : {None, "linear-programme"}
         Force the linear programme (otherwise the closed form is used where it applies).
+    check_worse_data : bool
+        Re-evaluate a block with a key at three worse variants of its weakest-intensity data and flag it when
+        one gives a longer key (proof note, section 7a); the reported length never changes.  Design searches
+        switch it off (it costs about three more evaluations).
 
     Returns
     -------
@@ -694,7 +706,7 @@ def key_length(block: DecoyBlock, statistics: str | None = None, prec: int = _PR
     .. [2] D. Rusca et al., Appl. Phys. Lett. 112, 171104 (2018).
     """
     result = _key_length(block, statistics, prec, analysis)
-    if result.secret_key_length > 0:
+    if check_worse_data and result.secret_key_length > 0:
         result = _flag_worse_data(block, statistics, prec, analysis, result)
     return result
 
@@ -720,7 +732,10 @@ def _flag_worse_data(block, statistics, prec, analysis, result):
         changed = {f"{basis}_{kind}": tuple(counts)}
         if basis == "key" and kind == "detections" and block.ec_leak_bits > sum(counts):
             continue
-        other = _key_length(replace(block, **changed), statistics, prec, analysis)
+        try:
+            other = _key_length(replace(block, **changed), statistics, prec, analysis)
+        except ComputationError:    # a perturbed block the solver cannot certify: no comparison
+            continue
         if other.secret_key_length > result.secret_key_length:
             longer.append((other.secret_key_length - result.secret_key_length,
                            f"{basis}_basis.{kind}[{w}] {'+' if delta > 0 else '-'}1 gives "
