@@ -106,8 +106,9 @@ def test_serfling_reproduces_2012_formula_term_by_term(n, k, e, leak):
     # Tomamichel, Lim, Gisin, Renner, Nat. Commun. 3, 634 (2012):
     #   ell <= n (1 - h(Q + mu)) - leak_EC - log2(2 / (eps_sec^2 eps_cor)),
     #   mu = sqrt((n + k)/(n k) (k + 1)/k ln(X / eps_sec)).
-    # The paper's X is recalled from memory as 2.  Our ledger (secrecy 2 eps_s + eps_PA with the sampling bound at
-    # eps_s^2, default split eps_s = eps_sec/4, eps_PA = eps_sec/2) gives X = 4: slightly more conservative.
+    # X = 4 in the paper's Eq. (2) (checked in a machine-extracted copy of the paper; an earlier recollection
+    # said 2).  Our ledger (secrecy 2 eps_s + eps_PA with the sampling bound at eps_s^2, default split
+    # eps_s = eps_sec/4, eps_PA = eps_sec/2) gives X = 4 as well: the same formula.
     res = key_length(block(key_bits=n, test_bits=k, test_errors=e, ec_leak_bits=leak), "serfling")
     eps_s = res.ledger.epsilon("smoothing")
     eps_pa = res.ledger.epsilon("privacy_amplification")
@@ -131,9 +132,8 @@ def test_serfling_reproduces_2012_formula_term_by_term(n, k, e, leak):
         assert res.terms["ec_leakage"] == leak
         exact_value = hmin - leak - tag - hash_pen
         assert res.secret_key_length == max(0, int(mpmath.floor(exact_value)))
-        # never more than the 2012 formula itself, with the paper's mu (X = 2) and its log2(2/eps_cor) tag bound
-        mu_2 = mpmath.sqrt((n_ + k_) / (n_ * k_) * (k_ + 1) / k_ * mpmath.log(2 / mpmath.mpf(EPS_SEC)))
-        ell_2012 = n_ * (1 - mp_h(Q + mu_2)) - leak - mpmath.log(2 / (mpmath.mpf(EPS_SEC) ** 2 * EPS_COR), 2)
+        # never more than the 2012 formula itself, with the paper's mu (X = 4) and its log2(2/eps_cor) tag bound
+        ell_2012 = n_ * (1 - mp_h(Q + mu_4)) - leak - mpmath.log(2 / (mpmath.mpf(EPS_SEC) ** 2 * EPS_COR), 2)
         assert res.secret_key_length <= max(0, ell_2012 + 1)
 
 
