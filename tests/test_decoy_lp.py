@@ -101,3 +101,21 @@ def test_tail_caps_bound_the_conditional_probabilities():
     np.testing.assert_allclose(P.sum(axis=0), 1.0)
     ref = p[:, None] * stats.poisson.pmf(np.arange(41)[None, :], mu[:, None])
     np.testing.assert_allclose(P, ref / ref.sum(axis=0), rtol=1e-10)
+
+
+def test_float_intensity_matrix_within_the_certificate_slack():
+    """The LP certificate widens every row by _MATRIX_SLACK for the float p_{k|n}; the float matrix must be
+    that close to the exact one.  Reference: mpmath at 40 digits, p_{k|n} = p_k e^{-mu_k} mu_k^n / sum_j ..."""
+    import mpmath
+    from finitekey.protocols import _decoy_lp as L
+    worst = 0.0
+    for mu, p in [([0.6, 0.2, 0.05, 0.0002], [0.7, 0.15, 0.1, 0.05]), ([1.5, 0.3, 0.0], [0.5, 0.3, 0.2]),
+                  ([0.9, 0.1, 0.01, 0.001], [0.25, 0.25, 0.25, 0.25])]:
+        P = L.conditional_intensity(mu, p, L.TRUNCATION)
+        with mpmath.workdps(40):
+            for n in range(L.TRUNCATION + 1):
+                w = [mpmath.mpf(pk) * mpmath.exp(-mpmath.mpf(mk)) * (mpmath.mpf(mk) ** n if mk > 0 else int(n == 0))
+                     for mk, pk in zip(mu, p)]
+                tot = sum(w)
+                worst = max(worst, max(abs(float(w[k] / tot) - P[k, n]) for k in range(len(mu))))
+    assert worst <= L._MATRIX_SLACK / 1000

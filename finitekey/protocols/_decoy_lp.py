@@ -59,6 +59,11 @@ def _quiet_stdout():
         os.close(saved)
 
 
+#: Bound on the absolute error of every entry of the float matrix ``p_{k|n}`` (entries in [0, 1], computed in
+#: log space with a few roundings: relative error far below 1e-13); widens the LP rows in the certificate.
+_MATRIX_SLACK = 1e-11
+
+
 def conditional_intensity(mu, p, n_max: int) -> np.ndarray:
     """Matrix ``P[k, n] = p_{k|n}`` for ``n = 0..n_max`` (float, computed in log space)."""
     mu = np.asarray(mu, dtype=float)
@@ -151,14 +156,18 @@ def _solve_bound(P, caps, lo, hi, total, target: int, sign: int, use_total: bool
     y = np.maximum(np.asarray(cons[0].dual_value, dtype=float), 0.0)
     # cvxpy's equality multipliers enter its Lagrangian with the opposite sign to the dual used here
     z = -np.asarray(cons[1].dual_value, dtype=float)
-    # weak duality in ball arithmetic, with the exact (arb) interval ends and the matrix entries as given
+    # weak duality in ball arithmetic.  The interval ends enter exactly (arb division by T, not the float
+    # lo_f/hi_f the solver saw), and every row with entries of the float matrix P is widened by
+    # _MATRIX_SLACK: a true solution (sum_n s_n <= 1 after scaling) meets the float rows up to
+    # max |P_float - P_true| <= _MATRIX_SLACK (second review).  Any y >= 0 then gives a valid bound.
     with ctx.workprec(128):
         ya = [arb(float(v)) for v in y]
         za = [arb(float(v)) for v in z]
         hb = []
+        slack_p = arb(_MATRIX_SLACK)
         for k in range(K):
-            hb.append(arb(float(lo_f[k])))
-            hb.append(-arb(float(hi_f[k])))
+            hb.append(arb(A.floor_arb(lo[k])) / T - slack_p)
+            hb.append(-(arb(A.ceil_arb(hi[k])) / T + slack_p))
         hb += [arb(0)] * K
         val = sum((ya[i] * hb[i] for i in range(len(ya))), arb(0)) + (za[1] if use_total else arb(0))
         slack = arb(0)
