@@ -61,7 +61,8 @@ def test_bounds_cover_actual_counts(method):
                              "test_basis": {"detections": td.tolist(), "errors": te.tolist()},
                              "ec_leak_bits": 0, "eps_sec": 1e-2, "eps_cor": 1e-12})
         e = D.key_length(blk, method).estimates
-        ok = (e["vacuum_key_detections_lower"] <= ks[0] and e["single_photon_key_detections_lower"] <= ks[1] and e["single_photon_test_detections_lower"] <= ts[1]
+        ok = (e["vacuum_key_detections_lower"] <= ks[0] and e["single_photon_key_detections_lower"] <= ks[1]
+              and e["single_photon_test_detections_lower"] <= ts[1]
               and e["single_photon_test_errors_upper"] >= tv[1] and e["phase_error_rate_upper"] >= ph / ks[1])
         failures += not ok
     # total failure probability of the estimation events is below eps_sec = 1e-2 per block, so the number

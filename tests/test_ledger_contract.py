@@ -87,6 +87,14 @@ SAMPLES = {
     "decoy-bb84": [(_DECOY3, "exact"), (_DECOY3, "chernoff"), (_DECOY3, "hoeffding"),
                    ({**_DECOY3, "pulses": 10**10}, "kato"), (_DECOY2, "exact"), (_DECOY2, "hoeffding"),
                    ({**_DECOY2, "pulses": 10**8}, "kato"), (_DECOY4, "exact"),
+                   ({**_DECOY3, "acceptance": {
+                       "statistics": "chernoff", "ec_leak_bits": _DECOY3["ec_leak_bits"],
+                       "key_basis": {"detections": [[max(c - 10**5, 0), c + 10**5]
+                                                    for c in _DECOY3["key_basis"]["detections"]]},
+                       "test_basis": {"detections": [[max(c - 10**4, 0), c + 10**4]
+                                                     for c in _DECOY3["test_basis"]["detections"]],
+                                      "errors": [[max(c - 10**3, 0), c + 10**3]
+                                                 for c in _DECOY3["test_basis"]["errors"]]}}}, "chernoff"),
                    ({**_DECOY3, "epsilon_split": {"count_estimation": 0.5, "single_photon_smoothing": 0.3,
                                                   "chain_rule": 0.1, "privacy_amplification": 0.1}}, "exact")],
 }

@@ -161,7 +161,8 @@ def test_decoy_phase_error_at_half():
                [400000, 15000, 200], [200000, 7500, 100], leak=415200)
     r = D.key_length(b)
     assert r.secret_key_length == 0
-    assert r.estimates["single_photon_key_detections_lower"] >= 1 and r.estimates["single_photon_test_detections_lower"] >= 1
+    assert r.estimates["single_photon_key_detections_lower"] >= 1
+    assert r.estimates["single_photon_test_detections_lower"] >= 1
     assert r.estimates["phase_error_rate_upper"] >= 0.5
     assert r.status.reason is NoKeyReason.PHASE_ERROR_BOUND
 

@@ -33,6 +33,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import optimize as _opt
 
+from ..domains import Domain
 from ..errors import ComputationError, InputError
 from ..protocols import _decoy_analysis as A
 from ..protocols import decoy_bb84 as D
@@ -553,6 +554,67 @@ def _result(problem, theta, fval) -> DesignResult:
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
                         block_fill_time_s=sc.model.block_fill_time_s(N), scenario=sc.as_dict(),
                         diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl), notes=notes)
+
+
+def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str = "chernoff",
+                    leak_margin: float = 0.0) -> tuple:
+    """A fixed-length acceptance test from a design's expected counts, and the length it certifies.
+
+    Every count the analysis uses gets the range ``expected -/+ (sigmas sqrt(expected) + 1)`` (rounded
+    outwards, clipped at 0); the leakage bound is the design's ``ec_leak_bits`` times ``1 + leak_margin``.
+    Fix the returned test before the run and give it as the block field ``acceptance``: every accepted block
+    then gets the returned fixed length, and any other block aborts (proof note of decoy-bb84, section 7b).
+
+    Parameters
+    ----------
+    result : DesignResult
+        A decoy-bb84 design with a key.
+    sigmas : float
+        Half-width of each range in standard deviations of a Poisson count (6: about 2e-9 two-sided per count).
+    statistics : {"chernoff", "hoeffding"}
+    leak_margin : float
+        Relative headroom of the leakage bound over the design's expected leakage.
+
+    Returns
+    -------
+    (dict, KeyLengthResult)
+        The ``acceptance`` block field and the fixed-length result at the design's expected counts.
+
+    Raises
+    ------
+    InputError
+        For a design without a key, or a bad ``sigmas``, ``statistics`` or ``leak_margin``.
+    """
+    if not result.status.key:
+        raise InputError("design", "no key", "a design with a key (an acceptance test needs expected counts)")
+    sigmas = float(Domain(0.0, 100.0, lower_open=True).check_scalar("sigmas", sigmas))
+    leak_margin = float(Domain(0.0, 10.0).check_scalar("leak_margin", leak_margin))
+    if statistics not in D.ACCEPTANCE_STATISTICS:
+        raise InputError("statistics", statistics, "one of: " + ", ".join(D.ACCEPTANCE_STATISTICS))
+    c = result.expected_counts
+    sc = D.parse_scenario(result.scenario)
+
+    def box(values):
+        return [[max(int(math.floor(x - sigmas * math.sqrt(x) - 1)), 0),
+                 int(math.ceil(x + sigmas * math.sqrt(x) + 1))] for x in values]
+
+    mu = result.parameters["intensities"]
+    acc = {"statistics": statistics,
+           "ec_leak_bits": int(math.ceil(c["ec_leak_bits"] * (1 + leak_margin))),
+           "key_basis": {"detections": box(c["key_basis.detections"])},
+           "test_basis": {"detections": box(c["test_basis.detections"]), "errors": box(c["test_basis.errors"])}}
+    if len(mu) == 2:
+        acc["key_basis"]["errors"] = box(c["key_basis.errors"])
+    rnd = lambda xs: [int(round(x)) for x in xs]  # noqa: E731
+    kd, td = rnd(c["key_basis.detections"]), rnd(c["test_basis.detections"])
+    data = {"protocol": D.PROTOCOL_NAME, "intensities": mu,
+            "intensity_probabilities": result.parameters["intensity_probabilities"],
+            "key_basis": {"detections": kd, "errors": [min(e, d) for e, d in zip(rnd(c["key_basis.errors"]), kd)]},
+            "test_basis": {"detections": td,
+                           "errors": [min(e, d) for e, d in zip(rnd(c["test_basis.errors"]), td)]},
+            "ec_leak_bits": int(c["ec_leak_bits"]), "eps_sec": sc.eps_sec, "eps_cor": sc.eps_cor,
+            "epsilon_split": result.parameters["epsilon_split"], "acceptance": acc}
+    return acc, D.key_length(D.parse_block(data))
 
 
 def key_detections_note(pulses: float, target: float | None, expected: float) -> str:

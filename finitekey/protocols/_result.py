@@ -102,6 +102,7 @@ class NoKeyReason(enum.Enum):
     BELOW_ONE_BIT = "below_one_bit"
     BLOCK_TOO_SMALL = "block_too_small"
     NO_POSITIVE_DESIGN = "no_positive_design"
+    ACCEPTANCE_FAILED = "acceptance_failed"
 
     @property
     def text(self) -> str:
@@ -109,6 +110,8 @@ class NoKeyReason(enum.Enum):
 
 
 _REASON_TEXT = {
+    NoKeyReason.ACCEPTANCE_FAILED: "the block fails the acceptance test fixed before it (fixed-length protocol: "
+                                   "abort)",
     NoKeyReason.THRESHOLD_EXCEEDED: "beyond the threshold: the asymptotic key rate of this channel is zero, so no "
                                     "block size gives a key",
     NoKeyReason.PHASE_ERROR_BOUND: "the phase-error upper bound reaches 1/2 (error rate above the threshold for "

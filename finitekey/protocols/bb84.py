@@ -668,9 +668,10 @@ def parse_scenario(data) -> BB84Scenario:
 
     Sections: ``[protocol]`` (name, label), ``[channel]`` (qber), ``[budget]`` (detections, or signals with
     detection_probability; optional signal_rate_hz; detections are all detections of the block, both bases,
-    before sifting, read as the expected detections of a block closed after a fixed number of signals), ``[security]`` (eps_sec and eps_cor, or eps_total with
-    optional eps_cor_share), ``[reconciliation]`` (model, efficiency, frame_error_rate), ``[analysis]``
-    (statistics, overlap), ``[design]`` (p_x to fix the bias, optimise_split, smoothing_share).
+    before sifting, read as the expected detections of a block closed after a fixed number of signals),
+    ``[security]`` (eps_sec and eps_cor, or eps_total with optional eps_cor_share), ``[reconciliation]``
+    (model, efficiency, frame_error_rate), ``[analysis]`` (statistics, overlap), ``[design]`` (p_x to fix the
+    bias, optimise_split, smoothing_share).
     """
     if not isinstance(data, dict):
         raise InputError("scenario", data, "a table of sections: " + ", ".join(SCENARIO_SCHEMA))

@@ -265,6 +265,7 @@ class DecoyBlock:
     label: str | None = None
     pulses: int | None = None
     kato_expected: dict | None = None
+    acceptance: "AcceptanceTest | None" = None
 
     def as_dict(self) -> dict:
         """JSON-ready mapping in the block-file layout (``parse_block`` reads it back).
@@ -284,12 +285,65 @@ class DecoyBlock:
             d["pulses"] = self.pulses
         if self.kato_expected is not None:
             d["kato_expected"] = {b: {k: list(v) for k, v in t.items()} for b, t in self.kato_expected.items()}
+        if self.acceptance is not None:
+            d["acceptance"] = self.acceptance.as_dict()
         return d
+
+
+#: Statistics a fixed-length acceptance test supports: their count intervals are monotone in the observed count
+#: and (hoeffding) in the basis total, so the widest interval over the acceptance box is at its corners.
+ACCEPTANCE_STATISTICS = ("chernoff", "hoeffding")
+
+
+@dataclass(frozen=True)
+class AcceptanceTest:
+    """A fixed-length protocol's acceptance test, fixed before the block (proof note, section 7b).
+
+    The block is accepted when every listed count lies in its closed range ``[a, b]`` and its
+    ``ec_leak_bits`` does not exceed the test's; the key length is then the one certified for the whole box
+    (every count interval widened to its range), the same for every accepted block.
+
+    Attributes
+    ----------
+    statistics : {"chernoff", "hoeffding"}
+    ec_leak_bits : int
+        Leakage bound of the error-correction code, fixed in advance (the formula uses it, not the block's).
+    ranges : dict
+        ``{"key_basis": {"detections": ((a, b), ...), "errors": ...}, "test_basis": {...}}``, one range per
+        intensity; key-basis errors only with two intensities.
+    """
+
+    statistics: str
+    ec_leak_bits: int
+    ranges: dict
+
+    def as_dict(self) -> dict:
+        """JSON-ready mapping in the block-file layout.
+
+        Returns
+        -------
+        dict
+        """
+        return {"statistics": self.statistics, "ec_leak_bits": self.ec_leak_bits,
+                **{b: {k: [list(r) for r in v] for k, v in t.items()} for b, t in self.ranges.items()}}
+
+    def violations(self, block) -> list:
+        """The counts (and the leakage) of ``block`` outside the test, as field names with values."""
+        bad = []
+        for basis, table in self.ranges.items():
+            for kind, rng in table.items():
+                observed = getattr(block, f"{basis.split('_')[0]}_{kind}")
+                for i, ((a, b), c) in enumerate(zip(rng, observed)):
+                    if not a <= c <= b:
+                        bad.append(f"{basis}.{kind}[{i}] = {c} outside [{a}, {b}]")
+        if block.ec_leak_bits > self.ec_leak_bits:
+            bad.append(f"ec_leak_bits = {block.ec_leak_bits} above the fixed {self.ec_leak_bits}")
+        return bad
 
 
 _BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
                  "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "label", "pulses",
-                 "kato_expected", "closed_by")
+                 "kato_expected", "closed_by", "acceptance")
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -377,7 +431,51 @@ def parse_block(data: dict) -> DecoyBlock:
     expected = None
     if data.get("kato_expected") is not None:
         expected = _check_kato_expected(data["kato_expected"], len(mu), pulses)
-    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split, label, pulses, expected)
+    acceptance = None
+    if data.get("acceptance") is not None:
+        acceptance = _check_acceptance(data["acceptance"], len(mu))
+    return DecoyBlock(mu, p, kd, ke, td, te, leak, eps_sec, eps_cor, split, label, pulses, expected, acceptance)
+
+
+def _check_acceptance(data, n: int) -> AcceptanceTest:
+    """``acceptance``: a fixed-length acceptance test (``AcceptanceTest``), fixed before the block."""
+    tables = {"key_basis": ("detections",) + (("errors",) if n == 2 else ()),
+              "test_basis": ("detections", "errors")}
+    shape = ('{"statistics": "chernoff" or "hoeffding", "ec_leak_bits": L, "key_basis": {"detections": [[a, b], ...]'
+             + (', "errors": [...]' if n == 2 else "") + '}, "test_basis": {"detections": [...], "errors": [...]}} '
+             f"with one range [a, b] of non-negative integers per intensity ({n})")
+    if not isinstance(data, dict) or sorted(data) != sorted(("statistics", "ec_leak_bits") + tuple(tables)):
+        raise InputError("acceptance", data, shape)
+    stats = data["statistics"]
+    if stats not in ACCEPTANCE_STATISTICS:
+        raise InputError("acceptance.statistics", stats, "one of: " + ", ".join(ACCEPTANCE_STATISTICS)
+                         + " (their intervals are monotone over the acceptance box)")
+    leak = int(COUNT.check_scalar("acceptance.ec_leak_bits", data["ec_leak_bits"]))
+    if n not in (2, 3):
+        raise InputError("acceptance", "given", "a block of 2 or 3 intensities (the closed forms; the linear "
+                         "programme has no acceptance-test mode)")
+    ranges = {}
+    for basis, kinds in tables.items():
+        t = data[basis]
+        if not isinstance(t, dict) or sorted(t) != sorted(kinds):
+            raise InputError(f"acceptance.{basis}", t, shape)
+        ranges[basis] = {}
+        for kind in kinds:
+            name = f"acceptance.{basis}.{kind}"
+            v = t[kind]
+            if not isinstance(v, (list, tuple)) or len(v) != n:
+                raise InputError(name, v, f"a list of {n} ranges [a, b] (one per intensity)")
+            out = []
+            for i, r in enumerate(v):
+                if not isinstance(r, (list, tuple)) or len(r) != 2:
+                    raise InputError(f"{name}[{i}]", r, "a range [a, b] of two non-negative integers")
+                a = int(COUNT.check_scalar(f"{name}[{i}][0]", r[0]))
+                b = int(COUNT.check_scalar(f"{name}[{i}][1]", r[1]))
+                if b < a:
+                    raise InputError(f"{name}[{i}]", list(r), "a range [a, b] with a <= b")
+                out.append((a, b))
+            ranges[basis][kind] = tuple(out)
+    return AcceptanceTest(stats, leak, ranges)
 
 
 _EXPECTED = Domain(0.0, math.inf)
@@ -478,8 +576,36 @@ def _intervals(method, counts, eps, prec, kato=None):
     return lo, hi
 
 
-def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: float, prec: int) -> dict:
-    """Certified (arb) s0, s1 (key basis), s1Z (test basis), v1 (test basis) for the closed forms."""
+def _box_intervals(method: str, ranges, eps: float, prec: int):
+    """Certified intervals valid for every observed count in the acceptance ranges ``[(a, b), ...]``.
+
+    The lower end at ``a`` and the upper end at ``b``: the chernoff limits increase with the observed count
+    and do not depend on the basis total; the hoeffding deviation ``sqrt(C/2 ln(1/eps))`` increases with the
+    total ``C``, which is at most ``sum b`` on the box.  So on the box every interval of an accepted block
+    lies inside these (proof note, section 7b).
+    """
+    lo, hi = [], []
+    with ctx.workprec(prec):
+        if method == "chernoff":
+            for a, b in ranges:
+                lo.append(A.count_interval_certified("chernoff", a, 0, eps, prec)[0])
+                hi.append(A.count_interval_certified("chernoff", b, 0, eps, prec)[1])
+        elif method == "hoeffding":
+            d = (arb(sum(b for _, b in ranges)) / 2 * (1 / arb(eps)).log()).sqrt()
+            for a, b in ranges:
+                lo.append(arb(A.floor_arb(arb(a) - d)))
+                hi.append(arb(A.ceil_arb(arb(b) + d)))
+        else:
+            raise ValueError(method)
+    return lo, hi
+
+
+def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: float, prec: int,
+                         box: dict | None = None) -> dict:
+    """Certified (arb) s0, s1 (key basis), s1Z (test basis), v1 (test basis) for the closed forms.
+
+    ``box``: an acceptance test's ranges; the intervals are then those valid on the whole box.
+    """
     mu = [arb(m) for m in block.intensities]
     p = [arb(x) for x in block.intensity_probabilities]
     exp = A.arb_exp
@@ -487,19 +613,29 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
     def kato(basis, kind):
         return None if method != "kato" else (block.pulses, None if ex is None else ex[basis][kind])
 
+    def intervals(basis, kind):
+        if box is not None:
+            return _box_intervals(method, box[basis][kind], eps_c, prec)
+        return _intervals(method, getattr(block, f"{basis.split('_')[0]}_{kind}"), eps_c, prec, kato(basis, kind))
+
+    def detections_total(basis):   # at most this many trials in the vacuum-error deviation
+        if box is not None:
+            return sum(b for _, b in box[basis]["detections"])
+        return sum(getattr(block, f"{basis.split('_')[0]}_detections"))
+
     with ctx.workprec(prec):
-        kl, kh = _intervals(method, block.key_detections, eps_c, prec, kato("key_basis", "detections"))
-        tl, th = _intervals(method, block.test_detections, eps_c, prec, kato("test_basis", "detections"))
-        el, eh = _intervals(method, block.test_errors, eps_c, prec, kato("test_basis", "errors"))
+        kl, kh = intervals("key_basis", "detections")
+        tl, th = intervals("test_basis", "detections")
+        el, eh = intervals("test_basis", "errors")
         s0u = s0zu = None
         if analysis == "three-intensity":
             s0, s1 = A.three_intensity(mu, p, kl, kh, exp)
             s0z, s1z = A.three_intensity(mu, p, tl, th, exp)
             v1 = A.three_intensity_errors(mu, p, el, eh, exp)
         elif analysis == "two-intensity":
-            kel, keh = _intervals(method, block.key_errors, eps_c, prec, kato("key_basis", "errors"))
-            vac_key = _vacuum_deviation(method, sum(block.key_detections), eps_c)
-            vac_test = _vacuum_deviation(method, sum(block.test_detections), eps_c)
+            kel, keh = intervals("key_basis", "errors")
+            vac_key = _vacuum_deviation(method, detections_total("key_basis"), eps_c)
+            vac_test = _vacuum_deviation(method, detections_total("test_basis"), eps_c)
             s0u = A.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
             s0, s1 = A.two_intensity(mu, p, kl, kh, s0u, exp)
             s0zu = A.two_intensity_vacuum_upper(mu, p, eh[1], vac_test, exp)
@@ -752,6 +888,8 @@ def _flag_worse_data(block, statistics, prec, analysis, result):
 
 
 def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResult:
+    if block.acceptance is not None:
+        return _fixed_length(block, statistics, prec, analysis)
     method = _check_statistics(statistics)
     if method == "exact":
         _check_exact_range(block)
@@ -760,13 +898,62 @@ def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResul
         _check_kato(block, analysis)
     ledger = block_ledger(block, method, analysis)
     eps_c = ledger.failure_probability("count_estimation")
-    eps_p = ledger.failure_probability("single_photon_smoothing")    # eps^2: the smoothing's event
-    eps_ch = ledger.smoothing("chain_rule")
-    eps_pa = ledger.hashing("privacy_amplification")
     est = _estimates_certified(block, method, analysis, eps_c, prec)
     est, violations = _physical_check(block, est)
     if violations:
         return _inconsistent_result(block, method, analysis, ledger, est, violations)
+    return _finish(block, method, analysis, ledger, est, prec, block.ec_leak_bits)
+
+
+FIXED_LENGTH_ASSUMPTION = (
+    "fixed-length protocol: the key length and the acceptance test (count ranges, statistics, leakage bound) "
+    "were fixed before the block; an accepted block gets the length certified for the whole acceptance box, a "
+    "rejected one aborts (proof note, section 7b)")
+
+
+def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResult:
+    """Fixed-length mode: the length certified on the whole acceptance box; 0 (abort) outside it."""
+    acc = block.acceptance
+    if statistics is not None and statistics != acc.statistics:
+        raise InputError("statistics", statistics, f"'{acc.statistics}' or none: a block with an acceptance test "
+                         "is analysed with the test's own statistics")
+    analysis = analysis_kind(block.intensities, analysis)
+    if analysis == "linear-programme":
+        raise InputError("acceptance", "given", "a block of 2 intensities, or 3 with mu1 > mu2 + mu3 (the closed "
+                         "forms; the linear programme has no acceptance-test mode)")
+    method = acc.statistics
+    ledger = block_ledger(block, method, analysis)
+    eps_c = ledger.failure_probability("count_estimation")
+    est = _estimates_certified(block, method, analysis, eps_c, prec, box=acc.ranges)
+    pos = lambda x: max(A.floor_arb(x), 0.0)  # noqa: E731
+    est = dict(est)
+    # on an accepted block the test detections and errors are at most the sums of the range tops
+    n_z = sum(b for _, b in acc.ranges["test_basis"]["detections"])
+    m_z = sum(b for _, b in acc.ranges["test_basis"]["errors"])
+    n_x_min = sum(a for a, _ in acc.ranges["key_basis"]["detections"])
+    if pos(est["s0"]) + pos(est["s1"]) > n_x_min:
+        raise InputError("acceptance", "given", "ranges consistent with the decoy model: the certified vacuum and "
+                         f"single-photon key detections ({pos(est['s0']) + pos(est['s1']):.6g}) exceed the fewest "
+                         f"key-basis detections the test accepts ({n_x_min})")
+    est["k_upper"] = n_z - int(math.ceil(pos(est["s0z"])))
+    est["v1_formula"] = est["v1"]
+    if A.ceil_arb(est["v1"]) > m_z:
+        est["v1"] = arb(m_z)
+    fixed = _finish(block, method, analysis, ledger, est, prec, acc.ec_leak_bits)
+    settings = {**fixed.settings, "mode": "fixed-length"}
+    assumptions = fixed.assumptions + (FIXED_LENGTH_ASSUMPTION,)
+    bad = acc.violations(block)
+    if not bad:
+        return replace(fixed, assumptions=assumptions, settings=settings)
+    return replace(fixed, secret_key_length=0, assumptions=assumptions, settings=settings,
+                   status=Status.no_key(NoKeyReason.ACCEPTANCE_FAILED, "; ".join(bad)))
+
+
+def _finish(block, method, analysis, ledger, est, prec, leak_bits) -> KeyLengthResult:
+    """Phase-error bound and the key-length formula from certified estimates (one place for both modes)."""
+    eps_p = ledger.failure_probability("single_photon_smoothing")    # eps^2: the smoothing's event
+    eps_ch = ledger.smoothing("chain_rule")
+    eps_pa = ledger.hashing("privacy_amplification")
     phi, extra = _phase_error(method, est, eps_p, prec)
     with ctx.workprec(prec):
         s0 = est["s0"]
@@ -777,7 +964,7 @@ def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResul
         chain = CHAIN_RULES * (2 / (arb(eps_ch) * arb(eps_ch))).log() / ln2
         pa = 2 * (1 / (2 * arb(eps_pa))).log() / ln2
         tag = (2 / arb(block.eps_cor)).log() / ln2
-        leak = arb(block.ec_leak_bits)
+        leak = arb(leak_bits)
         single = s1 * (1 - h)
         total = s0 + single - leak - chain - pa - tag
     # A float certainly below the ball (float(total.lower()) would round to nearest whenever the caller's
@@ -785,7 +972,7 @@ def _key_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResul
     lower = A.floor_arb(total) if total.is_finite() else -math.inf
     length = max(0, int(math.floor(lower))) if math.isfinite(lower) else 0
     terms = {"vacuum_bits": A.floor_arb(s0), "single_photon_bits": A.floor_arb(single),
-             "ec_leakage": float(block.ec_leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
+             "ec_leakage": float(leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
              "hash_penalty": A.ceil_arb(pa), "verification_tag": A.ceil_arb(tag),
              "key_length_lower_bound": A.floor_arb(total)}
     estimates = {"vacuum_key_detections_lower": A.floor_arb(est["s0"]),
