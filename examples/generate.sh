@@ -4,6 +4,9 @@ set -euo pipefail
 cd "$(dirname "$0")"
 fk() { python -m finitekey.cli "$@"; }
 
+# 0. the example decoy-state blocks (expected counts of the metro link's design; a fixed-length variant)
+python make_decoy_blocks.py
+
 # 1. metropolitan link between two data centres
 fk table metro_datacentre.toml --vary block.pulses=1e9,1e10,1e11,1e12 -o metro_datacentre_table.md
 fk plot metro_datacentre.toml --vary link.distance_km=0:80:10 --vary block.pulses=1e9,1e11 -o metro_datacentre_rate.png
