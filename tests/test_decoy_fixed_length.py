@@ -55,6 +55,7 @@ def test_fixed_length_never_exceeds_the_variable_length_on_accepted_blocks(stats
     acc = _acceptance(base, stats)
     fixed = D.key_length(D.parse_block({**base, "acceptance": acc}))
     assert fixed.status.key and fixed.settings["mode"] == "fixed-length"
+    assert D.FIXED_LENGTH_ASSUMPTION in fixed.assumptions and D.VARIABLE_LENGTH_ASSUMPTION not in fixed.assumptions
     ell = fixed.secret_key_length
     assert ell > 0
     rng = np.random.default_rng(20261202)

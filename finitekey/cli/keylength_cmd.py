@@ -127,16 +127,15 @@ def render_key_result(res, label: str | None = None) -> str:
     """Human-readable rendering of a KeyLengthResult (protocol independent); ``label`` names the block."""
     rows = [["protocol", res.protocol, ""], ["statistics", res.statistics, ""],
             ["secret key length", res.secret_key_length, "bits"], ["status", res.status.text(), ""]]
-    if label is not None:
-        rows.insert(0, ["label", label, ""])
     for k, v in getattr(res, "settings", {}).items():
         rows.append([f"setting: {k}", str(v), ""])
     for k, v in res.terms.items():
         rows.append([f"term: {k}", fmt(v), "bits"])
     for k, v in res.estimates.items():
         rows.append([f"estimate: {k}", fmt(v), _unit(k)])
-    parts = [table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:", render_ledger(res.ledger), "",
-             "Assumptions:"] + [f"  - {a}" for a in res.assumptions]
+    parts = ([] if label is None else [f"block: {label}"])   # above the table: a long label would widen it
+    parts += [table(rows, ["quantity", "value", "unit"]), "", "Epsilon ledger:", render_ledger(res.ledger), "",
+              "Assumptions:"] + [f"  - {a}" for a in res.assumptions]
     parts += ["Sources:"] + [f"  - {r}" for r in res.references]
     return "\n".join(parts)
 

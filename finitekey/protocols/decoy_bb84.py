@@ -106,14 +106,18 @@ BLOCK_RULE_ASSUMPTION = (
     "fill; each pulse's intensity and both bases chosen independently with fixed probabilities and announced "
     "only after the block's last pulse is measured, so the attack cannot depend on them")
 
+#: How the length is used (replaced by FIXED_LENGTH_ASSUMPTION for a block with an acceptance test).
+VARIABLE_LENGTH_ASSUMPTION = (
+    "variable-length use: the length is computed from this block's counts by a rule (statistics, epsilon split, "
+    "leakage bound) fixed before the block; count-interval failures are charged once each and the phase-error "
+    "bound is a smoothing term evaluated at its parameter squared (proof note finitekey/_notes/protocols/"
+    "decoy_bb84.md, sections 7 and 8, which also list what is assumed about conditioning on key-basis data)")
 ASSUMPTIONS = (
     "Alice's pulses are phase-randomised weak coherent states with Poissonian photon number; intensities and "
     "bases are chosen independently at random each round and the chosen intensity is not otherwise revealed",
     "Bob's detection probability and basis choice do not depend on the basis (no efficiency mismatch); "
     "threshold detectors with double clicks assigned a random bit",
-    "fixed-length protocol analysed as in the 2014 proof: the estimation failure events are charged once "
-    "each to eps_sec (see the proof note finitekey/_notes/protocols/decoy_bb84.md for what this assumes about "
-    "conditioning on acceptance)",
+    VARIABLE_LENGTH_ASSUMPTION,
     BLOCK_RULE_ASSUMPTION,
     "the single-photon key and test detections form a uniformly random split of all single-photon detections "
     "(basis chosen independently of the photon number and of the adversary)",
@@ -941,7 +945,8 @@ def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthRes
         est["v1"] = arb(m_z)
     fixed = _finish(block, method, analysis, ledger, est, prec, acc.ec_leak_bits)
     settings = {**fixed.settings, "mode": "fixed-length"}
-    assumptions = fixed.assumptions + (FIXED_LENGTH_ASSUMPTION,)
+    assumptions = tuple(FIXED_LENGTH_ASSUMPTION if a == VARIABLE_LENGTH_ASSUMPTION else a
+                        for a in fixed.assumptions)
     bad = acc.violations(block)
     if not bad:
         return replace(fixed, assumptions=assumptions, settings=settings)
