@@ -176,8 +176,25 @@ def _check_status(status: Status, has_key: bool, what: str) -> None:
                          f"{'positive' if has_key else 'zero'}")
 
 
+class _Summarised:
+    """``summary()`` and ``str``: every field of a result as indented text, with the caution."""
+
+    __slots__ = ()
+
+    def summary(self) -> str:
+        """Every field as indented text, with the caution (also what ``str`` gives).
+
+        Returns
+        -------
+        str
+        """
+        return _summary(self)
+
+    __str__ = summary
+
+
 @dataclass(frozen=True)
-class KeyLengthResult:
+class KeyLengthResult(_Summarised):
     """Secret key length of one block and everything it rests on.
 
     Attributes
@@ -245,16 +262,6 @@ class KeyLengthResult:
         return (f"KeyLengthResult(protocol={self.protocol!r}, secret_key_length={int(self.secret_key_length)}, "
                 f"eps_sec={self.eps_sec:.3g}, eps_cor={self.eps_cor:.3g}, status={_status_short(self.status)!r})")
 
-    def summary(self) -> str:
-        """Every field as indented text, with the caution (also what ``str`` gives).
-
-        Returns
-        -------
-        str
-        """
-        return _summary(self)
-
-    __str__ = summary
 
     def to_dict(self) -> dict:
         """JSON-ready dictionary (see the protocol interface)."""
@@ -277,7 +284,7 @@ class KeyLengthResult:
 
 
 @dataclass(frozen=True)
-class DesignResult:
+class DesignResult(_Summarised):
     """Free parameters chosen for a scenario and the key they are expected to give.
 
     Attributes
@@ -338,16 +345,6 @@ class DesignResult:
                 f"secret_key_rate_per_signal={'-' if rate is None else format(float(rate), '.4g')}, "
                 f"eps_sec={e.eps_sec:.3g}, eps_cor={e.eps_cor:.3g}, status={_status_short(self.status)!r})")
 
-    def summary(self) -> str:
-        """Every field as indented text, with the caution (also what ``str`` gives).
-
-        Returns
-        -------
-        str
-        """
-        return _summary(self)
-
-    __str__ = summary
 
     def to_dict(self) -> dict:
         rate = None if self.secret_key_rate_per_signal is None else float(self.secret_key_rate_per_signal)
@@ -446,7 +443,7 @@ class BlockTarget:
 
 
 @dataclass(frozen=True)
-class BlockSizeResult:
+class BlockSizeResult(_Summarised):
     """The smallest block reaching a target, and the design at that size.
 
     Attributes
@@ -483,16 +480,6 @@ class BlockSizeResult:
                 f"size={int(self.size)}, size_kind={self.size_kind!r}, secret_key_length={int(e.secret_key_length)}, "
                 f"eps_sec={e.eps_sec:.3g}, eps_cor={e.eps_cor:.3g}, status={_status_short(self.status)!r})")
 
-    def summary(self) -> str:
-        """Every field as indented text, with the caution (also what ``str`` gives).
-
-        Returns
-        -------
-        str
-        """
-        return _summary(self)
-
-    __str__ = summary
 
     def to_dict(self) -> dict:
         return {"target": self.target.to_dict(), "size": int(self.size), "size_kind": self.size_kind,
@@ -501,7 +488,7 @@ class BlockSizeResult:
 
 
 @dataclass(frozen=True)
-class ReachResult:
+class ReachResult(_Summarised):
     """The largest distance with a positive certified key, found by a search in distance.
 
     Attributes
@@ -545,16 +532,6 @@ class ReachResult:
         return (f"ReachResult(reach_km={km}, limit_reached={self.limit_reached}, statistics={self.statistics!r}"
                 f"{tail}, status={_status_short(self.status)!r})")
 
-    def summary(self) -> str:
-        """Every field as indented text, with the caution (also what ``str`` gives).
-
-        Returns
-        -------
-        str
-        """
-        return _summary(self)
-
-    __str__ = summary
 
     def to_dict(self) -> dict:
         out = {"reach_km": None if self.reach_km is None else float(self.reach_km), "status": self.status.to_dict(),
