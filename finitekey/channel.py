@@ -38,13 +38,27 @@ import numpy as np
 from .domains import RATE_HZ, Domain
 from .errors import InputError
 
-__all__ = ["Link", "Detector", "Source", "LinkModel", "ExpectedCounts", "transmittance", "repeaterless_bound"]
+__all__ = ["FIELD_DOMAINS", "Link", "Detector", "Source", "LinkModel", "ExpectedCounts", "transmittance",
+           "repeaterless_bound"]
 
 _NONNEG = Domain(0.0, math.inf)
 _UNIT_OPEN_LOW = Domain(0.0, 1.0, lower_open=True)      # (0, 1]
 _HALF_PROB = Domain(0.0, 0.5, upper_open=True)            # [0, 1/2)
 _PROB_CLOSED = Domain(0.0, 1.0, upper_open=True)          # [0, 1)
 _POS = Domain(0.0, math.inf, lower_open=True)
+#: The allowed values of every device field, by its scenario name (the scenario declarations of the protocols
+#: refer to these, so a field is validated, listed and exported with one domain).
+FIELD_DOMAINS = {
+    "link.distance_km": _NONNEG, "link.fiber_loss_db_per_km": _NONNEG, "link.extra_loss_db": _NONNEG,
+    "detector.efficiency": _UNIT_OPEN_LOW, "detector.dark_count_probability": _HALF_PROB,
+    "detector.afterpulse_probability": _PROB_CLOSED, "detector.misalignment_error": _HALF_PROB,
+    "detector.dead_time_s": _NONNEG, "source.repetition_rate_hz": RATE_HZ,
+}
+
+
+def _checked(name: str, value):
+    """``value`` checked against the domain of the device field ``name`` (errors name the field)."""
+    return FIELD_DOMAINS[name].check_scalar(name, value)
 
 
 @dataclass(frozen=True)
@@ -66,10 +80,10 @@ class Link:
     extra_loss_db: float = 0.0
 
     def __post_init__(self):
-        object.__setattr__(self, "distance_km", _NONNEG.check_scalar("link.distance_km", self.distance_km))
+        object.__setattr__(self, "distance_km", _checked("link.distance_km", self.distance_km))
         object.__setattr__(self, "fiber_loss_db_per_km",
-                           _NONNEG.check_scalar("link.fiber_loss_db_per_km", self.fiber_loss_db_per_km))
-        object.__setattr__(self, "extra_loss_db", _NONNEG.check_scalar("link.extra_loss_db", self.extra_loss_db))
+                           _checked("link.fiber_loss_db_per_km", self.fiber_loss_db_per_km))
+        object.__setattr__(self, "extra_loss_db", _checked("link.extra_loss_db", self.extra_loss_db))
 
     @property
     def loss_db(self) -> float:
@@ -102,14 +116,14 @@ class Detector:
     dead_time_s: float = 0.0
 
     def __post_init__(self):
-        object.__setattr__(self, "efficiency", _UNIT_OPEN_LOW.check_scalar("detector.efficiency", self.efficiency))
+        object.__setattr__(self, "efficiency", _checked("detector.efficiency", self.efficiency))
         object.__setattr__(self, "dark_count_probability",
-                           _HALF_PROB.check_scalar("detector.dark_count_probability", self.dark_count_probability))
+                           _checked("detector.dark_count_probability", self.dark_count_probability))
         object.__setattr__(self, "afterpulse_probability",
-                           _PROB_CLOSED.check_scalar("detector.afterpulse_probability", self.afterpulse_probability))
+                           _checked("detector.afterpulse_probability", self.afterpulse_probability))
         object.__setattr__(self, "misalignment_error",
-                           _HALF_PROB.check_scalar("detector.misalignment_error", self.misalignment_error))
-        object.__setattr__(self, "dead_time_s", _NONNEG.check_scalar("detector.dead_time_s", self.dead_time_s))
+                           _checked("detector.misalignment_error", self.misalignment_error))
+        object.__setattr__(self, "dead_time_s", _checked("detector.dead_time_s", self.dead_time_s))
 
 
 @dataclass(frozen=True)
@@ -127,7 +141,7 @@ class Source:
     def __post_init__(self):
         if self.repetition_rate_hz is not None:
             object.__setattr__(self, "repetition_rate_hz",
-                               RATE_HZ.check_scalar("source.repetition_rate_hz", self.repetition_rate_hz))
+                               _checked("source.repetition_rate_hz", self.repetition_rate_hz))
 
 
 @dataclass(frozen=True)

@@ -11,14 +11,43 @@ import math
 
 from ..domains import PROBABILITY, SECURITY_EPSILON
 from ..errors import InputError
+from ._spec import FieldSpec
 
-__all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "security_targets", "security_fields_with", "split_eps_total",
+__all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "SECURITY_SCHEMA_RULE", "block_security_specs",
+           "security_targets", "security_fields_with", "split_eps_total",
            "read_label", "one_of"]
 
 #: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
 DEFAULT_EPS_COR_SHARE = 0.1
 #: The security fields of a block (or of a scenario's ``[security]`` section).
 SECURITY_FIELDS = ("eps_sec", "eps_cor", "eps_total", "eps_cor_share")
+
+
+def block_security_specs(prefix: str = "") -> tuple:
+    """The declarations of the security fields, named ``prefix + field`` (``"security."`` in a scenario).
+
+    Returns
+    -------
+    tuple of FieldSpec
+        eps_sec, eps_cor, eps_total, eps_cor_share (the order of :data:`SECURITY_FIELDS`).
+    """
+    return (
+        FieldSpec(prefix + "eps_sec", "number", "secrecy target", domain=SECURITY_EPSILON,
+                  required="with eps_cor, or eps_total"),
+        FieldSpec(prefix + "eps_cor", "number", "correctness target", domain=SECURITY_EPSILON,
+                  required="with eps_sec, or eps_total"),
+        FieldSpec(prefix + "eps_total", "number", "total security target, split into eps_sec and eps_cor",
+                  domain=SECURITY_EPSILON, required="or eps_sec and eps_cor"),
+        FieldSpec(prefix + "eps_cor_share", "number", f"share of eps_total given to eps_cor (default "
+                  f"{DEFAULT_EPS_COR_SHARE})", domain=PROBABILITY, required="only with eps_total"),
+    )
+
+
+#: Rules across the security fields (eps_sec and eps_cor, or eps_total), for a JSON Schema.
+SECURITY_SCHEMA_RULE = {"oneOf": [
+    {"required": ["eps_sec", "eps_cor"],
+     "not": {"anyOf": [{"required": ["eps_total"]}, {"required": ["eps_cor_share"]}]}},
+    {"required": ["eps_total"], "not": {"anyOf": [{"required": ["eps_sec"]}, {"required": ["eps_cor"]}]}}]}
 
 
 def split_eps_total(total: float, share: float, field: str = "eps_total", share_field: str = "eps_cor_share"

@@ -16,7 +16,7 @@ _REGISTRY: dict = {}
 
 #: Methods every registered protocol object must provide (see notes in DEVELOPERS.md).
 REQUIRED = ("parse_block", "key_length", "parse_scenario", "default_scenario", "design", "blocksize",
-            "scenario_fields", "with_field")
+            "scenario_fields", "with_field", "fields_table", "json_schema")
 
 
 def register(obj):

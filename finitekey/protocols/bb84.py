@@ -70,7 +70,7 @@ from .._threads import with_one_blas_thread
 from ..bounds.hypergeometric_exact import key_errors_upper, key_errors_upper_certified
 from ..budget import Charge, Ledger, Role, TermSpec, allocate, squared_down
 from ..compile import compile_expression
-from ..domains import DETECTION_PROBABILITY, POSITIVE_COUNT, PROBABILITY, RATE_HZ, SECURITY_EPSILON, Domain
+from ..domains import COUNT, DETECTION_PROBABILITY, POSITIVE_COUNT, PROBABILITY, RATE_HZ, Domain
 from ..entropy import binary_entropy_expr, hash_penalty_expr, log2_expr
 from ..errors import ComputationError, InputError
 from ..searching import golden_max, maximize_box, smallest_passing
@@ -78,8 +78,10 @@ from ..reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, DisclosedLeakage, 
                               SecondOrderLeakage)
 from ._batch import map_in_chunks
 from ._block_rule import parse_closure
-from ._fields import read_label, security_fields_with, security_targets
+from ._fields import (SECURITY_SCHEMA_RULE, block_security_specs, read_label, security_fields_with,
+                      security_targets)
 from ._registry import register
+from ._spec import FieldSpec, by_name, json_schema, sections_of, table_rows
 from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult, NoKeyReason,
                       Status, design_no_key)
 
@@ -358,9 +360,45 @@ class BB84Block:
         return self.leakage.bits_upper(self.key_bits, self.key_qber)
 
 
-_BLOCK_FIELDS = ("protocol", "key_bits", "test_bits", "test_errors", "ec_leak_bits", "ec_efficiency", "key_qber",
-                 "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "overlap", "statistics",
-                 "label", "closed_by", "rounds")
+#: Every block field, declared once (``finitekey fields bb84``, ``finitekey schema bb84-block``).  Limits that
+#: depend on other fields (test_errors <= test_bits, ec_leak_bits <= key_bits, rounds >= key_bits + test_bits)
+#: are checked by :func:`parse_block` and named in the description.
+BLOCK_SPECS = (
+    FieldSpec("protocol", "choice", "the protocol analysed", choices=(PROTOCOL_NAME,)),
+    FieldSpec("key_bits", "number", "n: sifted key-basis bits", unit="bits", domain=POSITIVE_COUNT, required="yes"),
+    FieldSpec("test_bits", "number", "k: test-basis bits compared", unit="bits", domain=POSITIVE_COUNT,
+              required="yes"),
+    FieldSpec("test_errors", "number", "e: errors among the test bits (at most test_bits)", unit="bits",
+              domain=COUNT, required="yes"),
+    FieldSpec("ec_leak_bits", "number", "bits disclosed by error correction (at most key_bits)", unit="bits",
+              domain=COUNT, required="or ec_efficiency and key_qber"),
+    FieldSpec("ec_efficiency", "number", "reconciliation efficiency f (leak f n h(key_qber))",
+              domain=EFFICIENCY_DOMAIN, required="with key_qber, or ec_leak_bits"),
+    FieldSpec("key_qber", "number", "QBER of the key bits (with ec_efficiency)", domain=QBER_DOMAIN,
+              required="with ec_efficiency"),
+    *block_security_specs(),
+    FieldSpec("epsilon_split", "table", "shares of eps_sec for the secrecy terms (default 1/2 each)",
+              schema={"type": "object", "additionalProperties": {"type": "number", "exclusiveMinimum": 0,
+                                                                 "exclusiveMaximum": 1}}),
+    FieldSpec("overlap", "number", "maximal overlap c of the two measurements", domain=OVERLAP_DOMAIN_BB84,
+              default=0.5),
+    FieldSpec("statistics", "choice", "tail bound of the phase-error estimate (the caller's choice wins)",
+              choices=tuple(m.value for m in Statistics)),
+    FieldSpec("label", "text", "free-text identifier carried into batch output",
+              schema={"type": ["string", "integer"]}),
+    FieldSpec("closed_by", "choice", "how the block was closed (quota is refused)", choices=("rounds",),
+              default="rounds", schema={"enum": ["rounds", None]}),
+    FieldSpec("rounds", "number", "rounds of the block (at least key_bits + test_bits)", unit="rounds",
+              domain=POSITIVE_COUNT),
+)
+_BLOCK_SPEC = by_name(BLOCK_SPECS)
+_BLOCK_FIELDS = tuple(_BLOCK_SPEC)
+_BLOCK_SCHEMA_RULES = {"": {"allOf": [
+    {"oneOf": [{"required": ["ec_leak_bits"], "not": {"anyOf": [{"required": ["ec_efficiency"]},
+                                                                {"required": ["key_qber"]}]}},
+               {"required": ["ec_efficiency", "key_qber"], "not": {"required": ["ec_leak_bits"]}}]},
+    SECURITY_SCHEMA_RULE,
+]}}
 
 
 def _require(data, name, what):
@@ -392,8 +430,9 @@ def parse_block(data) -> BB84Block:
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}' for this analysis")
     parse_closure(data)
-    n = POSITIVE_COUNT.check_scalar("key_bits", _require(data, "key_bits", POSITIVE_COUNT.describe()))
-    k = POSITIVE_COUNT.check_scalar("test_bits", _require(data, "test_bits", POSITIVE_COUNT.describe()))
+    spec = _BLOCK_SPEC
+    n = spec["key_bits"].check(_require(data, "key_bits", spec["key_bits"].allowed()))
+    k = spec["test_bits"].check(_require(data, "test_bits", spec["test_bits"].allowed()))
     e = Domain(0, k, integer=True).check_scalar("test_errors", _require(data, "test_errors", f"an integer in [0, {k}]"))
     key_qber = None
     if "ec_leak_bits" in data:
@@ -403,9 +442,8 @@ def parse_block(data) -> BB84Block:
         leak = Domain(0, n, integer=True).check_scalar("ec_leak_bits", data["ec_leak_bits"])
         leakage: LeakageModel = DisclosedLeakage(leak)
     elif "ec_efficiency" in data or "key_qber" in data:
-        f = EFFICIENCY_DOMAIN.check_scalar("ec_efficiency",
-                                           _require(data, "ec_efficiency", EFFICIENCY_DOMAIN.describe()))
-        key_qber = QBER_DOMAIN.check_scalar("key_qber", _require(data, "key_qber", QBER_DOMAIN.describe()))
+        f = spec["ec_efficiency"].check(_require(data, "ec_efficiency", spec["ec_efficiency"].allowed()))
+        key_qber = spec["key_qber"].check(_require(data, "key_qber", spec["key_qber"].allowed()))
         leakage = FixedEfficiency(f)
         if leakage.bits_upper(n, key_qber) > n:
             raise InputError("ec_efficiency", f, f"a leakage f n h(key_qber) <= key_bits = {n}")
@@ -413,7 +451,7 @@ def parse_block(data) -> BB84Block:
         raise InputError("ec_leak_bits", None, "the number of bits disclosed by error correction (missing field; "
                                                "or give ec_efficiency and key_qber)")
     eps_sec, eps_cor = security_targets(data)
-    overlap = OVERLAP_DOMAIN_BB84.check_scalar("overlap", data.get("overlap", 0.5))
+    overlap = spec["overlap"].check(data.get("overlap", spec["overlap"].default))
     split = data.get("epsilon_split")
     if split is not None:
         if not isinstance(split, dict):
@@ -595,22 +633,44 @@ _P_X_DOMAIN = Domain(0.0, 1.0, lower_open=True, upper_open=True)
 _SHARE_DOMAIN = Domain(0.0, 1.0, lower_open=True, upper_open=True)
 _FRAME_DOMAIN = Domain(0.0, 0.5, lower_open=True, upper_open=True)
 
-#: section -> field -> (kind, domain or choices, default); default None means optional/absent.
-SCENARIO_SCHEMA = {
-    "protocol": {"name": ("choice", (PROTOCOL_NAME,), PROTOCOL_NAME), "label": ("str", None, None)},
-    "channel": {"qber": ("num", QBER_DOMAIN, None)},
-    "budget": {"detections": ("num", POSITIVE_COUNT, None), "signals": ("num", POSITIVE_COUNT, None),
-               "detection_probability": ("num", DETECTION_PROBABILITY, None),
-               "signal_rate_hz": ("num", RATE_HZ, None)},
-    "security": {"eps_sec": ("num", SECURITY_EPSILON, None), "eps_cor": ("num", SECURITY_EPSILON, None),
-                 "eps_total": ("num", SECURITY_EPSILON, None), "eps_cor_share": ("num", PROBABILITY, None)},
-    "reconciliation": {"model": ("choice", ("efficiency", "second_order"), "efficiency"),
-                       "efficiency": ("num", EFFICIENCY_DOMAIN, 1.1),
-                       "frame_error_rate": ("num", _FRAME_DOMAIN, 0.01)},
-    "analysis": {"statistics": ("choice", tuple(m.value for m in Statistics), "exact"),
-                 "overlap": ("num", OVERLAP_DOMAIN_BB84, 0.5)},
-    "design": {"p_x": ("num", _P_X_DOMAIN, None), "optimise_split": ("bool", None, True),
-               "smoothing_share": ("num", _SHARE_DOMAIN, 0.5)},
+#: Every scenario field, declared once: the parser validates with these, ``finitekey fields bb84`` lists them and
+#: ``finitekey schema bb84-scenario`` is generated from them.
+SCENARIO_SPECS = (
+    FieldSpec("protocol.name", "choice", "the protocol analysed", choices=(PROTOCOL_NAME,), default=PROTOCOL_NAME),
+    FieldSpec("protocol.label", "text", "free-text name of the scenario, carried into outputs"),
+    FieldSpec("channel.qber", "number", "expected quantum bit error rate", domain=QBER_DOMAIN, required="yes"),
+    FieldSpec("budget.detections", "number", "detections per block, both bases, before sifting", unit="detections",
+              domain=POSITIVE_COUNT, required="one of detections, signals"),
+    FieldSpec("budget.signals", "number", "signals sent per block", unit="signals", domain=POSITIVE_COUNT,
+              required="one of detections, signals"),
+    FieldSpec("budget.detection_probability", "number", "probability that a signal is detected",
+              domain=DETECTION_PROBABILITY, required="with signals"),
+    FieldSpec("budget.signal_rate_hz", "number", "signals sent per second", unit="Hz", domain=RATE_HZ),
+    *block_security_specs("security."),
+    FieldSpec("reconciliation.model", "choice", "leakage model of error correction",
+              choices=("efficiency", "second_order"), default="efficiency"),
+    FieldSpec("reconciliation.efficiency", "number", "reconciliation efficiency f (leak f n h(Q))",
+              domain=EFFICIENCY_DOMAIN, default=1.1),
+    FieldSpec("reconciliation.frame_error_rate", "number", "frame error rate of the second-order model",
+              domain=_FRAME_DOMAIN, default=0.01),
+    FieldSpec("analysis.statistics", "choice", "tail bound of the phase-error estimate",
+              choices=tuple(m.value for m in Statistics), default="exact"),
+    FieldSpec("analysis.overlap", "number", "maximal overlap c of the two measurements", domain=OVERLAP_DOMAIN_BB84,
+              default=0.5),
+    FieldSpec("design.p_x", "number", "fixed key-basis probability (default: optimised)", domain=_P_X_DOMAIN),
+    FieldSpec("design.optimise_split", "bool", "optimise the epsilon split", default=True),
+    FieldSpec("design.smoothing_share", "number", "share of eps_sec for smoothing when the split is not optimised",
+              domain=_SHARE_DOMAIN, default=0.5),
+)
+#: section -> field -> its declaration (the order of the sections and fields above).
+SCENARIO_SCHEMA = {sec: {k: by_name(SCENARIO_SPECS)[f"{sec}.{k}"] for k in keys}
+                   for sec, keys in sections_of(SCENARIO_SPECS).items()}
+#: Rules across scenario fields, for the JSON Schema (the parser checks them in code below).
+_SCENARIO_SCHEMA_RULES = {
+    "": {"required": ["channel", "budget", "security"]},
+    "budget": {"oneOf": [{"required": ["detections"], "not": {"required": ["signals"]}},
+                         {"required": ["signals", "detection_probability"], "not": {"required": ["detections"]}}]},
+    "security": SECURITY_SCHEMA_RULE,
 }
 
 
@@ -645,24 +705,6 @@ class BB84Scenario:
         return "detections" if self.detections is not None else "signals"
 
 
-def _check_field(section, name, value, spec):
-    kind, dom, _ = spec
-    fname = f"{section}.{name}"
-    if kind == "num":
-        return dom.check_scalar(fname, value)
-    if kind == "bool":
-        if not isinstance(value, bool):
-            raise InputError(fname, value, "true or false")
-        return value
-    if kind == "str":
-        if not isinstance(value, str):
-            raise InputError(fname, value, "a string")
-        return value
-    if value not in dom:
-        raise InputError(fname, value, "one of: " + ", ".join(dom))
-    return value
-
-
 def parse_scenario(data) -> BB84Scenario:
     """Validate a BB84 scenario mapping (from TOML); errors name ``section.field``.
 
@@ -689,9 +731,9 @@ def parse_scenario(data) -> BB84Scenario:
         sec = {}
         for name, spec in fields.items():
             if name in given:
-                sec[name] = _check_field(section, name, given[name], spec)
-            elif spec[2] is not None:
-                sec[name] = spec[2]
+                sec[name] = spec.check(given[name])
+            elif spec.default is not None:
+                sec[name] = spec.default
         norm[section] = sec
     if "qber" not in norm["channel"]:
         raise InputError("channel.qber", None, f"the expected QBER, {QBER_DOMAIN.describe()} (missing field)")
@@ -1053,6 +1095,34 @@ class BB84:
     def key_length_batch(blocks, statistics=None, jobs: int = 1):
         """:func:`finitekey.protocols.bb84.key_length_batch` (see there for the parameters)."""
         return key_length_batch(blocks, statistics, jobs=jobs)
+
+    block_specs = BLOCK_SPECS
+    scenario_specs = SCENARIO_SPECS
+
+    @staticmethod
+    def fields_table() -> dict:
+        """Every scenario and block field: ``{"scenario": rows, "block": rows}`` (see :func:`._spec.table_rows`).
+
+        Returns
+        -------
+        dict
+        """
+        return {"scenario": table_rows(SCENARIO_SPECS), "block": table_rows(BLOCK_SPECS)}
+
+    @staticmethod
+    def json_schema(kind: str) -> dict:
+        """JSON Schema (draft 2020-12) of a ``"block"`` or a ``"scenario"``, from the field declarations.
+
+        Returns
+        -------
+        dict
+        """
+        if kind == "block":
+            return json_schema(f"{PROTOCOL_NAME}-block", BLOCK_SPECS, sections=False, extra=_BLOCK_SCHEMA_RULES)
+        if kind == "scenario":
+            return json_schema(f"{PROTOCOL_NAME}-scenario", SCENARIO_SPECS, sections=True,
+                               extra=_SCENARIO_SCHEMA_RULES)
+        raise InputError("kind", kind, "one of: block, scenario")
 
     @staticmethod
     def default_scenario():

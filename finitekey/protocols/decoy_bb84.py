@@ -63,14 +63,16 @@ from flint import arb, ctx
 
 from .._threads import with_one_blas_thread
 from ..budget import Charge, Ledger, LedgerTerm, Role, TermSpec, allocate
-from ..channel import Detector, Link, LinkModel, Source, check_intensity_list
+from ..channel import FIELD_DOMAINS, Detector, Link, LinkModel, Source, check_intensity_list
 from ..domains import COUNT, PROBABILITY, Domain
 from ..errors import ComputationError, InputError
 from . import _decoy_analysis as A
 from ._batch import map_in_chunks
 from ._block_rule import parse_closure
-from ._fields import SECURITY_FIELDS, one_of, read_label, security_fields_with, security_targets
+from ._fields import (SECURITY_SCHEMA_RULE, block_security_specs, one_of, read_label, security_fields_with,
+                      security_targets)
 from ._registry import register
+from ._spec import FieldSpec, by_name, json_schema, sections_of, table_rows
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
 __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS", "key_length_batch",
@@ -345,9 +347,59 @@ class AcceptanceTest:
         return bad
 
 
-_BLOCK_FIELDS = ("protocol", "intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits",
-                 "eps_sec", "eps_cor", "eps_total", "eps_cor_share", "epsilon_split", "label", "pulses",
-                 "kato_expected", "closed_by", "acceptance")
+_COUNTS = {"type": "array", "items": {"type": "integer", "minimum": 0}, "minItems": 2}
+_BASIS_SCHEMA = {"type": "object", "properties": {"detections": _COUNTS, "errors": _COUNTS},
+                 "required": ["detections", "errors"], "additionalProperties": False}
+_EXPECTED_LIST = {"type": "array", "items": {"type": "number", "minimum": 0}, "minItems": 2}
+_RANGES = {"type": "array", "items": {"type": "array", "items": {"type": "integer", "minimum": 0}, "minItems": 2,
+                                      "maxItems": 2}, "minItems": 2, "maxItems": 3}
+#: Every block field, declared once (``finitekey fields decoy-bb84``, ``finitekey schema decoy-bb84-block``).
+#: Per-intensity lists and tables are checked inside by :func:`parse_block` (lengths, sums, errors <= detections).
+BLOCK_SPECS = (
+    FieldSpec("protocol", "choice", "the protocol analysed", choices=(PROTOCOL_NAME,)),
+    FieldSpec("intensities", "list", "mean photon numbers, strictly descending (at least two)", unit="photons",
+              required="yes", schema={"type": "array", "items": {"type": "number", "minimum": 0}, "minItems": 2}),
+    FieldSpec("intensity_probabilities", "list", "probability of each intensity, summing to 1", required="yes",
+              schema={"type": "array", "items": {"type": "number", "exclusiveMinimum": 0, "maximum": 1},
+                      "minItems": 2}),
+    FieldSpec("key_basis", "table", "key-basis detections and errors, one per intensity", unit="detections",
+              required="yes", schema=_BASIS_SCHEMA),
+    FieldSpec("test_basis", "table", "test-basis detections and errors, one per intensity", unit="detections",
+              required="yes", schema=_BASIS_SCHEMA),
+    FieldSpec("ec_leak_bits", "number", "bits disclosed by error correction (at most the key-basis detections)",
+              unit="bits", domain=COUNT, required="yes"),
+    *block_security_specs(),
+    FieldSpec("epsilon_split", "table", "shares of eps_sec for the secrecy terms, summing to 1",
+              schema={"type": "object", "properties": {t: {"type": "number", "exclusiveMinimum": 0,
+                                                           "exclusiveMaximum": 1} for t in SECRECY_TERMS},
+                      "required": list(SECRECY_TERMS), "additionalProperties": False}),
+    FieldSpec("label", "text", "free-text identifier carried into batch output",
+              schema={"type": ["string", "integer"]}),
+    FieldSpec("pulses", "number", "pulses sent (statistics kato; at least the detections of both bases)",
+              unit="pulses", domain=COUNT, schema={"type": ["integer", "null"], "minimum": 0}),
+    FieldSpec("kato_expected", "table", "pre-registered expected counts (statistics kato)", unit="detections",
+              schema={"type": ["object", "null"], "properties": {b: {
+                  "type": "object", "properties": {"detections": _EXPECTED_LIST, "errors": _EXPECTED_LIST},
+                  "required": ["detections", "errors"], "additionalProperties": False}
+                  for b in ("key_basis", "test_basis")}, "required": ["key_basis", "test_basis"],
+                  "additionalProperties": False}),
+    FieldSpec("closed_by", "choice", "how the block was closed (quota is refused)", choices=("rounds",),
+              default="rounds", schema={"enum": ["rounds", None]}),
+    FieldSpec("acceptance", "table", "fixed-length acceptance test, fixed before the block",
+              schema={"type": ["object", "null"], "properties": {
+                  "statistics": {"enum": list(ACCEPTANCE_STATISTICS)},
+                  "ec_leak_bits": {"type": "integer", "minimum": 0},
+                  "key_basis": {"type": "object", "properties": {"detections": _RANGES, "errors": _RANGES},
+                                "required": ["detections"], "additionalProperties": False},
+                  "test_basis": {"type": "object", "properties": {"detections": _RANGES, "errors": _RANGES},
+                                 "required": ["detections", "errors"], "additionalProperties": False}},
+                  "required": ["statistics", "ec_leak_bits", "key_basis", "test_basis"],
+                  "additionalProperties": False}),
+)
+_BLOCK_SPEC = by_name(BLOCK_SPECS)
+_BLOCK_FIELDS = tuple(_BLOCK_SPEC)
+_BLOCK_REQUIRED = tuple(s.name for s in BLOCK_SPECS if s.required == "yes")
+_BLOCK_SCHEMA_RULES = {"": SECURITY_SCHEMA_RULE}
 
 
 def _probabilities(field_name: str, values, n: int) -> tuple:
@@ -409,7 +461,7 @@ def parse_block(data: dict) -> DecoyBlock:
     if "protocol" in data and data["protocol"] != PROTOCOL_NAME:
         raise InputError("protocol", data["protocol"], f"'{PROTOCOL_NAME}'")
     parse_closure(data, "pulses")
-    for key in ("intensities", "intensity_probabilities", "key_basis", "test_basis", "ec_leak_bits"):
+    for key in _BLOCK_REQUIRED:
         if key not in data:
             raise InputError(key, None, "a value (required field)")
     mu = check_intensity_list("intensities", data["intensities"])
@@ -427,7 +479,7 @@ def parse_block(data: dict) -> DecoyBlock:
     label = read_label(data)
     pulses = None
     if data.get("pulses") is not None:
-        pulses = int(COUNT.check_scalar("pulses", data["pulses"]))
+        pulses = int(_BLOCK_SPEC["pulses"].check(data["pulses"]))
         total = sum(kd) + sum(td)
         if pulses < max(total, 1):
             raise InputError("pulses", data["pulses"], f"an integer >= the detections of both bases ({total}): "
@@ -1170,25 +1222,6 @@ def optimal_gllp_rate(model: LinkModel, ec_efficiency: float, sifting: float = 0
 # ---------------------------------------------------------------------------------------------------------
 # scenario
 # ---------------------------------------------------------------------------------------------------------
-_SCENARIO_SECTIONS = {
-    "protocol": ("name", "label", "intensity_count", "intensities", "intensity_probabilities",
-                 "key_basis_probability", "weakest_intensity"),
-    "link": ("distance_km", "fiber_loss_db_per_km", "extra_loss_db"),
-    "detector": ("efficiency", "dark_count_probability", "afterpulse_probability", "misalignment_error",
-                 "dead_time_s"),
-    "source": ("repetition_rate_hz",),
-    "block": ("pulses", "key_detections"),
-    "security": SECURITY_FIELDS,
-    "reconciliation": ("efficiency",),
-}
-_REQUIRED = {
-    "protocol": ("name",),
-    "link": ("distance_km", "fiber_loss_db_per_km"),
-    "detector": ("efficiency", "dark_count_probability"),
-    "block": (),      # pulses or key_detections: checked by one_of
-    "security": (),   # eps_sec and eps_cor, or eps_total: checked by security_targets
-    "reconciliation": ("efficiency",),
-}
 _EC_EFF = Domain(1.0, 10.0)
 _PULSES = Domain(1, 1e15, integer=True)   # a count; must stay below 2**50 for the exact tails
 #: Key-basis detections per block (a design target; the block is still closed after a number of pulses).
@@ -1196,6 +1229,64 @@ _KEY_DETECTIONS = Domain(1, 1e15, integer=True)
 #: The units a decoy block size is given in (scenario field names; ``size_kind`` of a block-size result).
 BLOCK_UNITS = ("pulses", "key_detections")
 _COUNT_K = Domain(2, 8, integer=True)
+
+
+def _device(name: str, description: str, unit: str = "", default=None, required: str = "no") -> FieldSpec:
+    """A device field, with the domain :class:`~finitekey.channel.Link`/``Detector``/``Source`` check it by."""
+    return FieldSpec(name, "number", description, unit=unit, domain=FIELD_DOMAINS[name], default=default,
+                     required=required)
+
+
+#: Every scenario field, declared once: the parser validates with these, ``finitekey fields decoy-bb84`` lists
+#: them and ``finitekey schema decoy-bb84-scenario`` is generated from them.
+SCENARIO_SPECS = (
+    FieldSpec("protocol.name", "choice", "the protocol analysed", choices=(PROTOCOL_NAME,), required="yes"),
+    FieldSpec("protocol.label", "text", "free-text name of the scenario, carried into outputs",
+              schema={"type": ["string", "integer"]}),
+    FieldSpec("protocol.intensity_count", "number", "number of intensities (signal and decoys)", domain=_COUNT_K,
+              default=3),
+    FieldSpec("protocol.intensities", "list", "fixed mean photon numbers, strictly descending (default: optimised)",
+              unit="photons", schema={"type": "array", "items": {"type": "number", "minimum": 0}, "minItems": 2,
+                                      "maxItems": 8}),
+    FieldSpec("protocol.intensity_probabilities", "list", "fixed probability of each intensity, summing to 1 "
+              "(default: optimised)", schema={"type": "array", "items": {"type": "number", "exclusiveMinimum": 0,
+                                                                          "exclusiveMaximum": 1},
+                                              "minItems": 2, "maxItems": 8}),
+    FieldSpec("protocol.key_basis_probability", "number", "fixed key-basis probability q_X (default: optimised)",
+              domain=PROBABILITY),
+    FieldSpec("protocol.weakest_intensity", "number", "mean photon number of the weakest (fixed) intensity",
+              unit="photons", domain=Domain(0.0, 1.0), default=2e-4),
+    _device("link.distance_km", "fibre length", "km", required="yes"),
+    _device("link.fiber_loss_db_per_km", "fibre attenuation", "dB/km", required="yes"),
+    _device("link.extra_loss_db", "loss independent of length (connectors, receiver optics)", "dB", 0.0),
+    _device("detector.efficiency", "detection efficiency, including Bob's optics", required="yes"),
+    _device("detector.dark_count_probability", "dark count probability per detector per gate", "per gate",
+            required="yes"),
+    _device("detector.afterpulse_probability", "probability that a click is followed by an afterpulse", "per click",
+            0.0),
+    _device("detector.misalignment_error", "probability that a photon reaches the wrong detector", "", 0.0),
+    _device("detector.dead_time_s", "dead time after each click", "s", 0.0),
+    _device("source.repetition_rate_hz", "pulses sent per second (for rates per second)", "Hz"),
+    FieldSpec("block.pulses", "number", "pulses sent per block", unit="pulses", domain=_PULSES,
+              required="one of pulses, key_detections"),
+    FieldSpec("block.key_detections", "number", "expected key-basis detections per block", unit="detections",
+              domain=_KEY_DETECTIONS, required="one of pulses, key_detections"),
+    *block_security_specs("security."),
+    FieldSpec("reconciliation.efficiency", "number", "reconciliation efficiency f (leak f n_X h(E_X))",
+              domain=_EC_EFF, required="yes"),
+)
+_SCENARIO_SPEC = by_name(SCENARIO_SPECS)
+_SCENARIO_SECTIONS = sections_of(SCENARIO_SPECS)
+#: Sections a scenario must have, with their required fields (alternatives are checked by one_of and
+#: security_targets).
+_REQUIRED = {sec: tuple(k for k in keys if _SCENARIO_SPEC[f"{sec}.{k}"].required == "yes")
+             for sec, keys in _SCENARIO_SECTIONS.items() if sec != "source"}
+_SCENARIO_SCHEMA_RULES = {
+    "": {"required": list(_REQUIRED)},
+    "block": {"oneOf": [{"required": ["pulses"], "not": {"required": ["key_detections"]}},
+                        {"required": ["key_detections"], "not": {"required": ["pulses"]}}]},
+    "security": SECURITY_SCHEMA_RULE,
+}
 
 
 @dataclass(frozen=True)
@@ -1313,7 +1404,9 @@ def parse_scenario(data: dict) -> DecoyScenario:
     if not isinstance(pr["name"], str) or pr["name"] != PROTOCOL_NAME:
         raise InputError("protocol.name", pr["name"], f"'{PROTOCOL_NAME}'")
     label = read_label(pr, "protocol.label")
-    k = int(_COUNT_K.check_scalar("protocol.intensity_count", pr.get("intensity_count", 3)))
+    spec = _SCENARIO_SPEC
+    count = spec["protocol.intensity_count"]
+    k = int(count.check(pr.get("intensity_count", count.default)))
     mu = None
     if "intensities" in pr:
         mu = check_intensity_list("protocol.intensities", pr["intensities"])
@@ -1325,24 +1418,27 @@ def parse_scenario(data: dict) -> DecoyScenario:
         probs = _probabilities("protocol.intensity_probabilities", pr["intensity_probabilities"], k)
     qx = None
     if "key_basis_probability" in pr:
-        qx = float(PROBABILITY.check_scalar("protocol.key_basis_probability", pr["key_basis_probability"]))
-    weakest = float(Domain(0.0, 1.0).check_scalar("protocol.weakest_intensity", pr.get("weakest_intensity", 2e-4)))
+        qx = float(spec["protocol.key_basis_probability"].check(pr["key_basis_probability"]))
+    weakest = float(spec["protocol.weakest_intensity"].check(pr.get("weakest_intensity",
+                                                                    spec["protocol.weakest_intensity"].default)))
     if mu is not None:
         weakest = mu[-1]
     ln = data["link"]
-    link = Link(ln["distance_km"], ln["fiber_loss_db_per_km"], ln.get("extra_loss_db", 0.0))
+    link = Link(ln["distance_km"], ln["fiber_loss_db_per_km"],
+                ln.get("extra_loss_db", spec["link.extra_loss_db"].default))
     dt = data["detector"]
-    det = Detector(dt["efficiency"], dt["dark_count_probability"], dt.get("afterpulse_probability", 0.0),
-                   dt.get("misalignment_error", 0.0), dt.get("dead_time_s", 0.0))
+    det = Detector(dt["efficiency"], dt["dark_count_probability"],
+                   *(dt.get(k, spec[f"detector.{k}"].default)
+                     for k in ("afterpulse_probability", "misalignment_error", "dead_time_s")))
     src = Source(data.get("source", {}).get("repetition_rate_hz"))
     bl = data["block"]
     pulses = key_detections = None
     if one_of(bl, BLOCK_UNITS, "block.", "pulses sent per block, " + _PULSES.describe()) == "pulses":
-        pulses = float(_PULSES.check_scalar("block.pulses", bl["pulses"]))
+        pulses = float(spec["block.pulses"].check(bl["pulses"]))
     else:
-        key_detections = int(_KEY_DETECTIONS.check_scalar("block.key_detections", bl["key_detections"]))
+        key_detections = int(spec["block.key_detections"].check(bl["key_detections"]))
     eps_sec, eps_cor = security_targets(data["security"], "security.")
-    f = float(_EC_EFF.check_scalar("reconciliation.efficiency", data["reconciliation"]["efficiency"]))
+    f = float(spec["reconciliation.efficiency"].check(data["reconciliation"]["efficiency"]))
     return DecoyScenario(LinkModel(link, det, src), pulses, eps_sec, eps_cor, f, k, mu, probs, qx, weakest, label,
                          tuple(data["security"].items()), key_detections)
 
@@ -1468,6 +1564,32 @@ class DecoyBB84:
         """
         from ..optimize import decoy_design
         return decoy_design.reach(scenario, _check_design_statistics(statistics))
+
+    block_specs = BLOCK_SPECS
+    scenario_specs = SCENARIO_SPECS
+
+    def fields_table(self) -> dict:
+        """Every scenario and block field: ``{"scenario": rows, "block": rows}`` (see :func:`._spec.table_rows`).
+
+        Returns
+        -------
+        dict
+        """
+        return {"scenario": table_rows(SCENARIO_SPECS), "block": table_rows(BLOCK_SPECS)}
+
+    def json_schema(self, kind: str) -> dict:
+        """JSON Schema (draft 2020-12) of a ``"block"`` or a ``"scenario"``, from the field declarations.
+
+        Returns
+        -------
+        dict
+        """
+        if kind == "block":
+            return json_schema(f"{PROTOCOL_NAME}-block", BLOCK_SPECS, sections=False, extra=_BLOCK_SCHEMA_RULES)
+        if kind == "scenario":
+            return json_schema(f"{PROTOCOL_NAME}-scenario", SCENARIO_SPECS, sections=True,
+                               extra=_SCENARIO_SCHEMA_RULES)
+        raise InputError("kind", kind, "one of: block, scenario")
 
     def scenario_fields(self) -> list:
         """:func:`scenario_fields`: the dotted scenario fields a sweep may vary."""
