@@ -46,6 +46,9 @@ SUBCOMMANDS = (
                "parameter table over a grid of scenarios (design, fixed or block size)"),
     SubCommand("plot", "plot_cmd", "PLOT", "plot key rate, smallest block size or the epsilon ledger"),
     SubCommand("report", "report_cmd", "REPORT", "self-contained offline HTML report (and optional LaTeX fragment)"),
+    SubCommand("fields", "fields_cmd", "FIELDS",
+               "list every scenario and block field of a protocol: type, unit, default, allowed range"),
+    SubCommand("schema", "fields_cmd", "SCHEMA", "JSON Schema of a block or scenario (e.g. bb84-block)"),
 )
 
 

@@ -15,7 +15,7 @@ from ..domains import Domain
 from ..errors import InputError
 
 __all__ = ["FieldSpec", "Warning_", "table_rows", "format_table", "json_schema", "domain_schema", "by_name",
-           "sections_of", "default_text"]
+           "sections_of", "default_text", "markdown_table"]
 
 #: Kinds of field: a number (real or whole, after its domain), a choice among strings, a boolean, free text,
 #: or a structured value (a list or a table) whose parser checks its inside (its schema is given by hand).
@@ -218,6 +218,16 @@ def format_table(rows, header=("field", "type", "unit", "default", "allowed", "r
     lines = []
     for r in all_rows:
         lines.append("  ".join(c.ljust(w) for c, w in zip(r[:-1], widths)) + "  " + r[-1])
+    return "\n".join(lines)
+
+
+def markdown_table(rows, header=("field", "type", "unit", "default", "allowed", "required", "description")) -> str:
+    """Markdown table of :func:`table_rows` rows (the README's scenario tables are this text)."""
+    def cell(c, i):
+        c = c.replace("|", "\\|")
+        return f"`{c}`" if i == 0 else c
+    lines = ["| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
+    lines += ["| " + " | ".join(cell(c, i) for i, c in enumerate(r)) + " |" for r in rows]
     return "\n".join(lines)
 
 
