@@ -99,6 +99,7 @@ def render_design(d, source: str | None = None) -> str:
     title = f"Design ({d.protocol}, statistics {d.expected.statistics})" if d.status.key else \
         f"No key ({d.protocol}, statistics {d.expected.statistics})"
     notes = ["", *("Note: " + n for n in getattr(d, "notes", ()))] if getattr(d, "notes", ()) else []
+    notes += ["", *("warning: " + w for w in d.warnings)] if d.warnings else []
     return "\n".join(head + [title, table(rows, ["quantity", "value", "unit"])] + notes
                      + ["", "Epsilon ledger:", render_ledger(d.expected.ledger)])
 

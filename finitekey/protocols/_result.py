@@ -316,6 +316,9 @@ class DesignResult(_Summarised):
     notes : tuple of str
         Statements needed to read the design correctly (e.g. how a block designed for a number of key-basis
         detections is closed); shown with the design in every output.
+    warnings : tuple of str
+        Defaults of the scenario that probably hide a physical effect at this design (e.g. no detector dead
+        time at a detection rate above 1 MHz), each naming the field and why; shown as ``warning:`` lines.
     """
 
     protocol: str
@@ -331,6 +334,7 @@ class DesignResult(_Summarised):
     diagnostics: dict = field(default_factory=dict)
     status: Status | None = None
     notes: tuple = ()
+    warnings: tuple = ()
 
     def __post_init__(self):
         has_key = self.expected.secret_key_length > 0
@@ -366,6 +370,7 @@ class DesignResult(_Summarised):
             "expected": self.expected.to_dict(),
             "diagnostics": _finite(self.diagnostics),
             "notes": list(self.notes),
+            "warnings": list(self.warnings),
         }
         if not self.status.key:
             out["parameters_tried"] = dict(self.parameters)

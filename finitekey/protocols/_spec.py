@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from ..domains import Domain
 from ..errors import InputError
 
-__all__ = ["FieldSpec", "Warning_", "table_rows", "format_table", "json_schema", "domain_schema", "by_name",
+__all__ = ["FieldSpec", "DefaultWarning", "table_rows", "format_table", "json_schema", "domain_schema", "by_name",
            "sections_of", "default_text", "markdown_table"]
 
 #: Kinds of field: a number (real or whole, after its domain), a choice among strings, a boolean, free text,
@@ -146,22 +146,42 @@ class FieldSpec:
 
 
 @dataclass(frozen=True)
-class Warning_:
-    """A rule flagging a default that probably hides a physical effect (declared as data).
+class DefaultWarning:
+    """A rule flagging a field left at a value that probably hides a physical effect (declared as data).
+
+    The rule fires when the field holds ``value`` (its default: the effect is not modelled) and the design's
+    ``quantity`` exceeds ``threshold``.
 
     Parameters
     ----------
     field : str
-        The scenario field whose default is suspect.
-    when : str
-        The condition, in words, for the message.
+        The scenario field, e.g. ``"detector.dead_time_s"``.
+    value : float
+        The value that leaves the effect out (the default).
+    quantity : str
+        The design figure compared, e.g. ``"detection_rate_hz"``.
+    threshold : float
+        Above this the effect is probably present.
+    label : str
+        The quantity and its unit in words, e.g. ``"detections per second"``.
     why : str
-        What the default hides.
+        What the value hides, for the message.
     """
 
     field: str
-    when: str
+    value: float
+    quantity: str
+    threshold: float
+    label: str
     why: str
+
+    def check(self, field_value, figures: dict) -> str | None:
+        """The warning text when the rule fires for ``field_value`` and the design ``figures``, else None."""
+        x = figures.get(self.quantity)
+        if x is None or field_value != self.value or not x > self.threshold:
+            return None
+        return (f"{self.field} = {default_text(self.value)} (the default: not modelled) while the design expects "
+                f"more than {self.threshold:g} {self.label}: {self.why}")
 
 
 def domain_schema(domain: Domain) -> dict:

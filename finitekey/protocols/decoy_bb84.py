@@ -72,7 +72,7 @@ from ._block_rule import parse_closure
 from ._fields import (SECURITY_SCHEMA_RULE, block_security_specs, one_of, read_label, security_fields_with,
                       security_targets)
 from ._registry import register
-from ._spec import FieldSpec, by_name, json_schema, sections_of, table_rows
+from ._spec import DefaultWarning, FieldSpec, by_name, json_schema, sections_of, table_rows
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
 __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS", "key_length_batch",
@@ -1287,6 +1287,38 @@ _SCENARIO_SCHEMA_RULES = {
                         {"required": ["key_detections"], "not": {"required": ["pulses"]}}]},
     "security": SECURITY_SCHEMA_RULE,
 }
+#: Fields whose default leaves out an effect a detector probably has at a high detection rate.  The rate at
+#: which 1 MHz becomes noticeable is common practice, no source: gated InGaAs detectors have dead times of
+#: about 10 ns to 10 us and afterpulse probabilities of about 1e-3 to 1e-1 (from memory), so that above about a
+#: million clicks per second both change the counts.
+DEFAULT_WARNINGS = (
+    DefaultWarning("detector.dead_time_s", 0.0, "detection_rate_hz", 1e6, "detections per second",
+                   "a dead time of 10 ns to 10 us, usual for gated detectors, would remove a noticeable share "
+                   "of these clicks; give detector.dead_time_s"),
+    DefaultWarning("detector.afterpulse_probability", 0.0, "detection_rate_hz", 1e6, "detections per second",
+                   "afterpulses, usual for gated detectors at this rate, would add errors; give "
+                   "detector.afterpulse_probability"),
+)
+
+
+def default_warnings(scenario: "DecoyScenario", design) -> tuple:
+    """The :data:`DEFAULT_WARNINGS` that fire for ``scenario`` at ``design`` (a DesignResult).
+
+    Returns
+    -------
+    tuple of str
+        One text per rule that fires, naming the field and why.
+    """
+    counts = design.expected_counts
+    fill = design.block_fill_time_s
+    figures = {}
+    if fill and fill > 0 and "key_basis.detections" in counts:
+        total = math.fsum(counts["key_basis.detections"]) + math.fsum(counts.get("test_basis.detections", ()))
+        figures["detection_rate_hz"] = total / fill
+    det = scenario.model.detector
+    values = {"detector.dead_time_s": det.dead_time_s, "detector.afterpulse_probability": det.afterpulse_probability}
+    out = (rule.check(values[rule.field], figures) for rule in DEFAULT_WARNINGS)
+    return tuple(w for w in out if w)
 
 
 @dataclass(frozen=True)
@@ -1525,7 +1557,9 @@ class DecoyBB84:
             See :func:`finitekey.optimize.decoy_design.design`; runs with one BLAS thread.
         """
         from ..optimize import decoy_design  # optimisation sits above protocols; imported on use
-        return decoy_design.design(scenario, _check_design_statistics(statistics))
+        result = decoy_design.design(scenario, _check_design_statistics(statistics))
+        warnings = default_warnings(scenario, result) if isinstance(result, DesignResult) else ()
+        return replace(result, warnings=warnings) if warnings else result
 
     @with_one_blas_thread
     def blocksize(self, scenario: DecoyScenario, target: BlockTarget, statistics: str | None = None,

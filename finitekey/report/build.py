@@ -117,6 +117,9 @@ def build_report(loaded: LoadedScenario, vary=None, statistics: str | None = Non
                           progress=progress, command=command)
         if columns is not None:
             parse_columns(columns, sweep)  # an unknown column is an InputError before anything is written
+    # defaults hiding an effect at the scenario's design, once: the sweep's table lists its own under it
+    swept = {w for r in (sweep.rows if sweep is not None else ()) for w in (r.get("design") or {}).get("warnings", ())}
+    notes += ["warning: " + w for w in d.get("warnings", ()) if w not in swept]
     bsweep = None
     if blocksize_target and vary:
         first = vary[:1]

@@ -258,6 +258,16 @@ def _error_notes(table) -> list:
     return notes
 
 
+def _warning_notes(table) -> list:
+    """One ``warning:`` line per distinct warning of the rows' designs (a default hiding an effect)."""
+    seen = []
+    for r in table.rows:
+        for w in (r.get("design") or {}).get("warnings", ()):
+            if w not in seen:
+                seen.append(w)
+    return ["warning: " + w for w in seen]
+
+
 def _status_notes(table) -> list:
     notes = []
     for r in table.rows:
@@ -290,7 +300,7 @@ def table_view(table, columns=None, pivot=None, human: bool = True) -> TableView
     human : bool
         Whether the view is for a human format (affects only the default columns).
     """
-    notes = _error_notes(table)
+    notes = _error_notes(table) + _warning_notes(table)
     if pivot is not None:
         if columns is not None:
             raise InputError("--columns", columns, "no --columns with --pivot (the pivot's cells are one quantity)")
