@@ -221,6 +221,7 @@ def _mutations_decoy_block():
     yield {**b, "protocol": "bb84-decoy"}
     yield {**b, "pulses": -5}
     yield {**b, "epsilon_split": {"count_estimation": 0.5}}
+    yield {**b, "intensity_probabilities": [1.0, 0.05, 0.05]}  # each in the open interval (0, 1)
 
 
 def _mutations_bb84_scenario():

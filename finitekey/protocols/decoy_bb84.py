@@ -360,7 +360,7 @@ BLOCK_SPECS = (
     FieldSpec("intensities", "list", "mean photon numbers, strictly descending (at least two)", unit="photons",
               required="yes", schema={"type": "array", "items": {"type": "number", "minimum": 0}, "minItems": 2}),
     FieldSpec("intensity_probabilities", "list", "probability of each intensity, summing to 1", required="yes",
-              schema={"type": "array", "items": {"type": "number", "exclusiveMinimum": 0, "maximum": 1},
+              schema={"type": "array", "items": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
                       "minItems": 2}),
     FieldSpec("key_basis", "table", "key-basis detections and errors, one per intensity", unit="detections",
               required="yes", schema=_BASIS_SCHEMA),
