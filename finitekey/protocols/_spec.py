@@ -292,3 +292,24 @@ def json_schema(title: str, specs, *, sections: bool, extra: dict | None = None)
         top.update(extra.get("", {}))
     return {"$schema": "https://json-schema.org/draft/2020-12/schema", "$id": f"finitekey:{title}",
             "title": title, **top}
+
+
+def protocol_schema(protocol: str, kind: str, block_specs, scenario_specs, block_rules: dict | None = None,
+                    scenario_rules: dict | None = None) -> dict:
+    """JSON Schema of a protocol's ``"block"`` or ``"scenario"`` (the one body behind every protocol object's
+    ``json_schema``).
+
+    Returns
+    -------
+    dict
+
+    Raises
+    ------
+    InputError
+        For a ``kind`` other than ``block`` or ``scenario``.
+    """
+    if kind == "block":
+        return json_schema(f"{protocol}-block", block_specs, sections=False, extra=block_rules)
+    if kind == "scenario":
+        return json_schema(f"{protocol}-scenario", scenario_specs, sections=True, extra=scenario_rules)
+    raise InputError("kind", kind, "one of: block, scenario")

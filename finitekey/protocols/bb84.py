@@ -81,7 +81,7 @@ from ._block_rule import parse_closure
 from ._fields import (SECURITY_SCHEMA_RULE, block_security_specs, read_label, security_fields_with,
                       security_targets)
 from ._registry import register
-from ._spec import FieldSpec, by_name, json_schema, sections_of, table_rows
+from ._spec import FieldSpec, by_name, protocol_schema, sections_of, table_rows
 from ._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, KeyLengthResult, NoKeyReason,
                       Status, design_no_key)
 
@@ -1117,12 +1117,8 @@ class BB84:
         -------
         dict
         """
-        if kind == "block":
-            return json_schema(f"{PROTOCOL_NAME}-block", BLOCK_SPECS, sections=False, extra=_BLOCK_SCHEMA_RULES)
-        if kind == "scenario":
-            return json_schema(f"{PROTOCOL_NAME}-scenario", SCENARIO_SPECS, sections=True,
-                               extra=_SCENARIO_SCHEMA_RULES)
-        raise InputError("kind", kind, "one of: block, scenario")
+        return protocol_schema(PROTOCOL_NAME, kind, BLOCK_SPECS, SCENARIO_SPECS, _BLOCK_SCHEMA_RULES,
+                               _SCENARIO_SCHEMA_RULES)
 
     @staticmethod
     def default_scenario():

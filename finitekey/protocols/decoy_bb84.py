@@ -72,7 +72,7 @@ from ._block_rule import parse_closure
 from ._fields import (SECURITY_SCHEMA_RULE, block_security_specs, one_of, read_label, security_fields_with,
                       security_targets)
 from ._registry import register
-from ._spec import DefaultWarning, FieldSpec, by_name, json_schema, sections_of, table_rows
+from ._spec import DefaultWarning, FieldSpec, by_name, protocol_schema, sections_of, table_rows
 from ._result import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 
 __all__ = ["DecoyBlock", "DecoyScenario", "DecoyBB84", "DECOY_BB84", "PROTOCOL_NAME", "STATISTICS", "key_length_batch",
@@ -1618,12 +1618,8 @@ class DecoyBB84:
         -------
         dict
         """
-        if kind == "block":
-            return json_schema(f"{PROTOCOL_NAME}-block", BLOCK_SPECS, sections=False, extra=_BLOCK_SCHEMA_RULES)
-        if kind == "scenario":
-            return json_schema(f"{PROTOCOL_NAME}-scenario", SCENARIO_SPECS, sections=True,
-                               extra=_SCENARIO_SCHEMA_RULES)
-        raise InputError("kind", kind, "one of: block, scenario")
+        return protocol_schema(PROTOCOL_NAME, kind, BLOCK_SPECS, SCENARIO_SPECS, _BLOCK_SCHEMA_RULES,
+                               _SCENARIO_SCHEMA_RULES)
 
     def scenario_fields(self) -> list:
         """:func:`scenario_fields`: the dotted scenario fields a sweep may vary."""
