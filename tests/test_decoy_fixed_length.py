@@ -190,3 +190,28 @@ def test_acceptance_box_inconsistent_with_the_model_is_refused():
     with pytest.raises(InputError) as exc:
         D.key_length(D.parse_block({**BASE, "acceptance": acc}))
     assert exc.value.field == "acceptance"
+
+
+def test_accepted_block_inconsistent_with_the_decoy_model_gets_no_fixed_length_key():
+    """An accepted block that the variable-length analysis rejects as inconsistent with the decoy model (here
+    no test-basis errors although its weakest-intensity test detections certify thousands of vacuum
+    detections, about half of which must be errors) must not get the fixed length: the fixed length may never
+    exceed what the variable-length analysis of the same statistics certifies for an accepted block.  Found
+    by a corner search over this box (random corners, finitekey's own variable-length key as the reference)."""
+    acc = {"statistics": "chernoff", "ec_leak_bits": BASE["ec_leak_bits"] + 1000,
+           "key_basis": {"detections": [[165400000, 165500000], [1020000, 1030000], [900, 1000]]},
+           "test_basis": {"detections": [[563000, 564000], [3400, 3600], [300, 310]],
+                          "errors": [[0, 9600], [0, 70], [0, 2]]}}
+    data = json.loads(json.dumps(BASE))
+    data["key_basis"]["detections"] = [165500000, 1020000, 1000]
+    data["test_basis"] = {"detections": [564000, 3400, 300], "errors": [0, 0, 2]}
+    data["ec_leak_bits"] = acc["ec_leak_bits"]
+    var = D.key_length(D.parse_block(data), "chernoff", check_worse_data=False)
+    assert var.secret_key_length == 0 and var.status.reason.value == "inconsistent_block"
+    consistent = json.loads(json.dumps(data))
+    consistent["test_basis"]["errors"] = [9600, 70, 2]
+    ell = D.key_length(D.parse_block({**consistent, "acceptance": acc})).secret_key_length
+    assert ell > 0                                              # the box itself certifies a key
+    fixed = D.key_length(D.parse_block({**data, "acceptance": acc}))
+    assert fixed.secret_key_length == 0 and fixed.status.reason.value == "inconsistent_block"
+    assert fixed.settings["mode"] == "fixed-length"

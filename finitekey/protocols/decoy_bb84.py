@@ -1001,6 +1001,12 @@ def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthRes
                         for a in fixed.assumptions)
     bad = acc.violations(block)
     if not bad:
+        # An accepted block must also pass the variable-length consistency checks on its own counts (the
+        # box bounds are weaker, so they cannot detect it): the fixed length never exceeds the variable one.
+        _, violations = _physical_check(block, _estimates_certified(block, method, analysis, eps_c, prec))
+        if violations:
+            return replace(fixed, secret_key_length=0, assumptions=assumptions, settings=settings,
+                           status=Status.no_key(NoKeyReason.INCONSISTENT_BLOCK, "; ".join(violations)))
         return replace(fixed, assumptions=assumptions, settings=settings)
     return replace(fixed, secret_key_length=0, assumptions=assumptions, settings=settings,
                    status=Status.no_key(NoKeyReason.ACCEPTANCE_FAILED, "; ".join(bad)))
