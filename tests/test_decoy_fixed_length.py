@@ -215,3 +215,18 @@ def test_accepted_block_inconsistent_with_the_decoy_model_gets_no_fixed_length_k
     fixed = D.key_length(D.parse_block({**data, "acceptance": acc}))
     assert fixed.secret_key_length == 0 and fixed.status.reason.value == "inconsistent_block"
     assert fixed.settings["mode"] == "fixed-length"
+
+
+def test_three_intensity_acceptance_reads_no_key_basis_error_count():
+    """With three intensities acceptance must not depend on a key-basis outcome (proof note, section 7b): the
+    consistency check on the key-basis errors is left out, so changing them keeps the fixed length, even where
+    the variable-length analysis rejects the block for too few key errors (common practice, no source: the
+    check is our own sanity test)."""
+    data = json.loads(json.dumps(BASE))
+    data["key_basis"]["detections"][2] = 5000                    # thousands of certified vacuum detections
+    acc = _acceptance(data)
+    ell = D.key_length(D.parse_block({**data, "acceptance": acc})).secret_key_length
+    data["key_basis"]["errors"] = [0, 0, 0]
+    var = D.key_length(D.parse_block(data), "chernoff", check_worse_data=False)
+    assert var.status.reason is not None and var.status.reason.value == "inconsistent_block"
+    assert ell > 0 and D.key_length(D.parse_block({**data, "acceptance": acc})).secret_key_length == ell

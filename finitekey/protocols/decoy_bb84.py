@@ -755,7 +755,7 @@ def _kato_actual_counts(block: DecoyBlock, analysis: str, est: dict, eps_c: floa
     return out
 
 
-def _physical_check(block: DecoyBlock, est: dict) -> tuple:
+def _physical_check(block: DecoyBlock, est: dict, key_errors: bool = True) -> tuple:
     """Clamp upper bounds to their physical maxima and test the lower bounds against the observed totals.
 
     Under the good events every bound holds for the true counts, and the true counts obey
@@ -765,6 +765,9 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
     that violate one of these show that the block cannot come from the decoy model (or a good event
     failed): no key may be extracted.  Upper bounds are clamped to the physical maximum (``v1 <= m_Z``),
     which keeps them valid; lower bounds are never raised.
+
+    ``key_errors=False`` skips the one check that reads the key-basis error counts (the fixed-length mode
+    with three intensities, whose acceptance must not depend on a key-basis outcome; proof note, section 7b).
 
     Returns
     -------
@@ -786,7 +789,7 @@ def _physical_check(block: DecoyBlock, est: dict) -> tuple:
     # always safe; the threshold uses Hoeffding's deviation at eps_sec over at most n detections.
     slack = math.log(1.0 / block.eps_sec) / 2.0
     m_x = sum(block.key_errors)
-    if pos(est["s0"]) / 2.0 - math.sqrt(n_x * slack) > m_x:
+    if key_errors and pos(est["s0"]) / 2.0 - math.sqrt(n_x * slack) > m_x:
         bad.append("key-basis errors fewer than half the vacuum lower bound allows")
     if "s0z" in est and pos(est["s0z"]) / 2.0 - math.sqrt(n_z * slack) > m_z:
         bad.append("test-basis errors fewer than half the vacuum lower bound allows")
@@ -1003,7 +1006,10 @@ def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthRes
     if not bad:
         # An accepted block must also pass the variable-length consistency checks on its own counts (the
         # box bounds are weaker, so they cannot detect it): the fixed length never exceeds the variable one.
-        _, violations = _physical_check(block, _estimates_certified(block, method, analysis, eps_c, prec))
+        # With three intensities the check on the key-basis errors is left out: acceptance must not depend
+        # on a key-basis outcome (proof note, section 7b).
+        own = _estimates_certified(block, method, analysis, eps_c, prec)
+        _, violations = _physical_check(block, own, key_errors=analysis == "two-intensity")
         if violations:
             return replace(fixed, secret_key_length=0, assumptions=assumptions, settings=settings,
                            status=Status.no_key(NoKeyReason.INCONSISTENT_BLOCK, "; ".join(violations)))
