@@ -570,7 +570,8 @@ def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str =
     result : DesignResult
         A decoy-bb84 design with a key.
     sigmas : float
-        Half-width of each range in standard deviations of a Poisson count (6: about 2e-9 two-sided per count).
+        Half-width of each range in standard deviations of a Poisson count (6: two-sided Poisson tail about
+        2e-9 per count for large expected counts, up to about 1e-7 at 3 and 1e-6 at 0.5, scipy.stats.poisson).
     statistics : {"chernoff", "hoeffding"}
     leak_margin : float
         Relative headroom of the leakage bound over the design's expected leakage.

@@ -307,7 +307,8 @@ class AcceptanceTest:
 
     The block is accepted when every listed count lies in its closed range ``[a, b]`` and its
     ``ec_leak_bits`` does not exceed the test's; the key length is then the one certified for the whole box
-    (every count interval widened to its range), the same for every accepted block.
+    (every count interval widened to its range), the same for every accepted block, unless the block's own
+    counts fail the consistency checks of the variable-length analysis (then no key, ``inconsistent_block``).
 
     Attributes
     ----------
@@ -971,7 +972,8 @@ FIXED_LENGTH_ASSUMPTION = (
 
 
 def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthResult:
-    """Fixed-length mode: the length certified on the whole acceptance box; 0 (abort) outside it."""
+    """Fixed-length mode: the length certified on the whole acceptance box; 0 (abort) outside it, or when the
+    block's own counts fail the variable-length consistency checks."""
     acc = block.acceptance
     if statistics is not None and statistics != acc.statistics:
         raise InputError("statistics", statistics, f"'{acc.statistics}' or none: a block with an acceptance test "
