@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 from finitekey.cli import main
+from scenarios import bb84_toml
 
 CHROMIUM = "/usr/bin/chromium"
 
@@ -25,20 +26,7 @@ pytestmark = [
                        reason="headless browser test needs /usr/bin/chromium (apt-get install -y chromium)"),
 ]
 
-SCENARIO = """
-[protocol]
-name = "bb84"
-label = "browser test link (fictional)"
-[channel]
-qber = 0.02
-[budget]
-signals = 1e10
-detection_probability = 1e-3
-signal_rate_hz = 1e9
-[security]
-eps_sec = 1e-10
-eps_cor = 1e-15
-"""
+SCENARIO = bb84_toml("browser test link (fictional)")
 
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync"]

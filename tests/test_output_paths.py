@@ -28,21 +28,9 @@ from pathlib import Path
 import pytest
 
 from finitekey.cli import main
+from scenarios import bb84_toml
 
-BB84_TOML = """
-[protocol]
-name = "bb84"
-label = "output-path test (fictional)"
-[channel]
-qber = 0.02
-[budget]
-signals = 1e10
-detection_probability = 1e-3
-signal_rate_hz = 1e9
-[security]
-eps_sec = 1e-10
-eps_cor = 1e-15
-"""
+BB84_TOML = bb84_toml("output-path test (fictional)")
 
 
 @pytest.fixture

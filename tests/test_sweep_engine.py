@@ -18,21 +18,9 @@ from finitekey import protocols
 from finitekey.cli import main
 from finitekey.errors import InputError
 from finitekey.report.sweep import load_scenario, run_sweep
+from scenarios import bb84_toml
 
-BB84_TOML = """
-[protocol]
-name = "bb84"
-label = "sweep test (fictional)"
-[channel]
-qber = 0.02
-[budget]
-signals = 1e10
-detection_probability = 1e-3
-signal_rate_hz = 1e9
-[security]
-eps_sec = 1e-10
-eps_cor = 1e-15
-"""
+BB84_TOML = bb84_toml("sweep test (fictional)")
 
 DECOY_TOML = """
 [protocol]
