@@ -47,12 +47,8 @@ def main() -> None:
     (HERE / "blocks" / "decoy_block.json").write_text(json.dumps(block, indent=1) + "\n")
     # the acceptance rule of decoy_design.acceptance_test (6 standard deviations per count, 2% leakage
     # headroom), applied to this block's expected counts at its rounded intensities
-    def box(values):
-        return [[max(int(math.floor(x - 6 * math.sqrt(x) - 1)), 0), int(math.ceil(x + 6 * math.sqrt(x) + 1))]
-                for x in values]
     acc = {"statistics": "chernoff", "ec_leak_bits": int(math.ceil(leak * 1.02)),
-           "key_basis": {"detections": box(c.key_detections)},
-           "test_basis": {"detections": box(c.test_detections), "errors": box(c.test_errors)}}
+           **DD.acceptance_ranges(c.key_detections, c.test_detections, c.test_errors, sigmas=6.0)}
     fixed_block = {**block, "label": "Riverside-Hilltop block 0001, fixed-length protocol (fictional)",
                    "acceptance": acc}
     (HERE / "blocks" / "decoy_block_fixed_length.json").write_text(json.dumps(fixed_block, indent=1) + "\n")

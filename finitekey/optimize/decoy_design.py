@@ -556,6 +556,26 @@ def _result(problem, theta, fval) -> DesignResult:
                         diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl), notes=notes)
 
 
+def acceptance_ranges(key_detections, test_detections, test_errors, key_errors=None, sigmas: float = 6.0) -> dict:
+    """The count tables of an acceptance test: ``expected -/+ (sigmas sqrt(expected) + 1)`` per count, rounded
+    outwards and clipped at 0 (key-basis errors only when given, i.e. with two intensities).
+
+    Returns
+    -------
+    dict
+        ``{"key_basis": {"detections": [[a, b], ...], ...}, "test_basis": {"detections": ..., "errors": ...}}``
+    """
+    def box(values):
+        return [[max(int(math.floor(x - sigmas * math.sqrt(x) - 1)), 0),
+                 int(math.ceil(x + sigmas * math.sqrt(x) + 1))] for x in values]
+
+    out = {"key_basis": {"detections": box(key_detections)},
+           "test_basis": {"detections": box(test_detections), "errors": box(test_errors)}}
+    if key_errors is not None:
+        out["key_basis"]["errors"] = box(key_errors)
+    return out
+
+
 def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str = "chernoff",
                     leak_margin: float = 0.0) -> tuple:
     """A fixed-length acceptance test from a design's expected counts, and the length it certifies.
@@ -594,18 +614,11 @@ def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str =
         raise InputError("statistics", statistics, "one of: " + ", ".join(D.ACCEPTANCE_STATISTICS))
     c = result.expected_counts
     sc = D.parse_scenario(result.scenario)
-
-    def box(values):
-        return [[max(int(math.floor(x - sigmas * math.sqrt(x) - 1)), 0),
-                 int(math.ceil(x + sigmas * math.sqrt(x) + 1))] for x in values]
-
     mu = result.parameters["intensities"]
     acc = {"statistics": statistics,
            "ec_leak_bits": int(math.ceil(c["ec_leak_bits"] * (1 + leak_margin))),
-           "key_basis": {"detections": box(c["key_basis.detections"])},
-           "test_basis": {"detections": box(c["test_basis.detections"]), "errors": box(c["test_basis.errors"])}}
-    if len(mu) == 2:
-        acc["key_basis"]["errors"] = box(c["key_basis.errors"])
+           **acceptance_ranges(c["key_basis.detections"], c["test_basis.detections"], c["test_basis.errors"],
+                               c["key_basis.errors"] if len(mu) == 2 else None, sigmas)}
     rnd = lambda xs: [int(round(x)) for x in xs]  # noqa: E731
     kd, td = rnd(c["key_basis.detections"]), rnd(c["test_basis.detections"])
     data = {"protocol": D.PROTOCOL_NAME, "intensities": mu,
