@@ -81,6 +81,8 @@ _DECOY4 = {"protocol": "decoy-bb84", "intensities": [0.6, 0.2, 0.05, 0.0002],
 _BB84 = {"protocol": "bb84", "key_bits": 10**6, "test_bits": 5 * 10**4, "test_errors": 1250,
          "ec_leak_bits": 190000, "eps_sec": 1e-10, "eps_cor": 1e-15}
 
+_TF = json.loads((ROOT / "examples" / "blocks" / "tf_sns_block.json").read_text())
+
 SAMPLES = {
     "bb84": [(_BB84, "exact"), (_BB84, "serfling"),
              ({**_BB84, "epsilon_split": {"smoothing": 0.9, "privacy_amplification": 0.1}}, "exact")],
@@ -97,6 +99,9 @@ SAMPLES = {
                                                  for c in _DECOY3["test_basis"]["errors"]]}}}, "chernoff"),
                    ({**_DECOY3, "epsilon_split": {"count_estimation": 0.5, "single_photon_smoothing": 0.3,
                                                   "chain_rule": 0.1, "privacy_amplification": 0.1}}, "exact")],
+    "tf-sns": [(_TF, "exact"), (_TF, "chernoff"),
+               ({**_TF, "epsilon_split": {"count_estimation": 0.4, "single_photon_smoothing": 0.3,
+                                          "chain_rule": 0.2, "privacy_amplification": 0.1}}, "exact")],
 }
 
 

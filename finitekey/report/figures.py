@@ -98,6 +98,9 @@ def rate_quantity(table: SweepTable) -> tuple:
 
 def _fibre_transmittance(scenario):
     """Transmittance of the link alone (no detector): the channel the repeaterless bound is about."""
+    fibre = getattr(getattr(scenario, "link", None), "fibre_transmittance", None)
+    if callable(fibre):   # a relay link (tf-sns): the end-to-end fibre of both arms
+        return float(fibre())
     model = getattr(scenario, "model", None)
     link = getattr(model, "link", None)
     loss = getattr(link, "loss_db", None)
@@ -112,6 +115,9 @@ def _asymptotic(proto, scenario, unit: str):
     if unit == "bit/detection":
         fn = getattr(proto, "asymptotic_rate", None)  # bb84: per detection, p_X -> 1
         return float(fn(scenario)) if callable(fn) else None
+    per_pulse = getattr(proto, "asymptotic_rate_per_pulse", None)   # a protocol's own asymptote (tf-sns)
+    if callable(per_pulse):
+        return float(per_pulse(scenario))
     if proto.name == "decoy-bb84":
         from ..protocols import decoy_bb84
         # infinite decoys, no sifting loss: the same asymptote the block-size target 'fraction=F' refers to

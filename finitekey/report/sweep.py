@@ -134,6 +134,8 @@ FIXED_PARAMETER_FIELDS = {
     "bb84": (("design.p_x",), (("design.optimise_split", False),)),
     "decoy-bb84": (("protocol.intensities", "protocol.intensity_probabilities", "protocol.key_basis_probability"),
                    ()),
+    "tf-sns": (("protocol.signal_intensity", "protocol.sending_probability", "protocol.decoy_intensities",
+                "protocol.decoy_probabilities", "protocol.key_window_probability"), ()),
 }
 
 

@@ -131,6 +131,7 @@ class TwinFieldLink:
         return 1.0 - 2.0 * self.misalignment_error
 
     def at_distance(self, distance_km: float) -> "TwinFieldLink":
+        """Copy with another total fibre length (the arm split kept)."""
         return replace(self, distance_km=float(distance_km))
 
     # ---- click probabilities (vectorised) --------------------------------------------------------
@@ -231,6 +232,7 @@ class SNSParameters:
                 (pz * e, pz * (1 - e) + (1 - pz) * p0, (1 - pz) * p1, (1 - pz) * p2))
 
     def as_dict(self) -> dict:
+        """JSON-ready parameters, with every intensity one side sends and its overall probability."""
         mus, ps = self.side_settings()
         order = sorted(range(4), key=lambda i: -mus[i])
         return {"signal_intensity": self.signal_intensity, "sending_probability": self.sending_probability,
@@ -453,9 +455,11 @@ class TFScenario:
         return dict(self.fixed)
 
     def with_windows(self, windows: float) -> "TFScenario":
+        """Copy with a block of ``windows`` windows."""
         return replace(self, windows=float(windows))
 
     def at_distance(self, km: float) -> "TFScenario":
+        """Copy with another total fibre length."""
         return replace(self, link=self.link.at_distance(km))
 
     def as_dict(self) -> dict:
