@@ -569,12 +569,18 @@ class KeyMapBlock:
         ``Omega_a`` itself.
     omega_k : tuple of numpy.ndarray
         ``Omega_{a,k}``, in the order of ``z``.
+    alice_sets : tuple of tuple of int
+        Alice's outcomes of each key value, in the order of ``z``.
+    bob : tuple of int
+        Bob's outcomes of the announcement.
     """
 
     g: np.ndarray
     z: tuple
     omega: np.ndarray
     omega_k: tuple
+    alice_sets: tuple = ()
+    bob: tuple = ()
 
 
 def _factor(omega: np.ndarray, rel_tol: float = 1e-12) -> np.ndarray:
@@ -595,18 +601,19 @@ def key_map_blocks(problem: KeyRateProblem) -> tuple:
     blocks = []
     for a in problem.announcements:
         nb = sum(problem.povm_b[y] for y in a.bob)
-        omega_k = []
+        zs, oks, sets = [], [], []
         for k in range(problem.n_key):
-            xs = [x for x in a.alice if problem.key_map[x] == k]
-            if xs:
-                omega_k.append(np.kron(sum(problem.povm_a[x] for x in xs), nb))
-        omega = sum(omega_k)
-        zs = []
-        oks = []
-        for ok in omega_k:
+            xs = tuple(x for x in a.alice if problem.key_map[x] == k)
+            if not xs:
+                continue
+            ok = np.kron(sum(problem.povm_a[x] for x in xs), nb)
             f = _factor(ok)
             if f.shape[0]:
                 zs.append(f)
                 oks.append(ok)
-        blocks.append(KeyMapBlock(g=_factor(omega), z=tuple(zs), omega=omega, omega_k=tuple(oks)))
+                sets.append(xs)
+        every = tuple(x for xs in sets for x in xs)
+        omega = np.kron(sum(problem.povm_a[x] for x in every), nb) if every else np.zeros((problem.dim,) * 2)
+        blocks.append(KeyMapBlock(g=_factor(omega), z=tuple(zs), omega=omega, omega_k=tuple(oks),
+                                  alice_sets=tuple(sets), bob=a.bob))
     return tuple(blocks)
