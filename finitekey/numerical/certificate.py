@@ -1,6 +1,6 @@
 """Certified lower bound on ``min f`` from a linearisation point and dual multipliers (ball arithmetic).
 
-The statement (see ``proofs_notes/numerical/certificate.md``).  For every positive definite ``rho``, every real
+The statement (see ``proofs_notes/numerical/solver.md``, section 4).  For every positive definite ``rho``, every real
 vector ``y`` and every feasible ``sigma`` (``sigma >= 0``, ``Tr sigma = 1``, ``l_i <= Tr(sigma Gamma_i) <= u_i``):
 
     f(sigma) >= Tr(sigma grad f(rho))                                      (convexity + homogeneity)

@@ -1,0 +1,171 @@
+"""The asymptotic numerical key rate against closed forms (finitekey.numerical.solver, .certificate).
+
+Sources: Shor and Preskill, PRL 85, 441 (2000) for BB84 (H(Z|E) = 1 - h(Q) per sifted bit, rate 1 - 2h(Q));
+Lo, QIC 1, 81 (2001) for the six-state one-way threshold near 12.6% (from memory); the six-state value
+1 - H(lambda) + h(Q) for Bell-diagonal weights lambda = (1 - 3Q/2, Q/2, Q/2, Q/2) is the textbook formula for
+a depolarised Bell state (from memory).
+"""
+
+import importlib.util
+import math
+
+import numpy as np
+import pytest
+
+from finitekey.errors import InputError
+from finitekey.numerical import model
+from finitekey.numerical.certificate import certify, lambda_min_lower, _acb_mat
+from finitekey.numerical.objective import Objective
+from finitekey.numerical.reference import bb84_depolarising, bb84_four_dim_bob, bb84_mismatch, six_state_depolarising
+from finitekey.numerical.solver import solve
+
+HAS_QICS = importlib.util.find_spec("qics") is not None
+BACKENDS = ["cvxpy", pytest.param("qics", marks=pytest.mark.skipif(not HAS_QICS, reason="qics not installed "
+                                                                    "(optional extra finitekey[numerical])"))]
+
+
+def h2(q):
+    return -q * math.log2(q) - (1 - q) * math.log2(1 - q)
+
+
+def entropy(ps):
+    return -sum(p * math.log2(p) for p in ps if p > 0)
+
+
+@pytest.mark.parametrize("backend", BACKENDS)
+@pytest.mark.parametrize("q", [0.01, 0.05, 0.11])
+def test_bb84_matches_shor_preskill(backend, q):
+    # Shor-Preskill 2000: H(Z|E) = 1 - h(Q) per sifted bit, so the key rate is 1 - 2h(Q).
+    prob, p_kept = bb84_depolarising(q)
+    r = solve(prob, backend=backend)
+    exact = 1 - h2(q)
+    assert r.certified_lower <= r.primal
+    assert r.certified_lower / p_kept <= exact                   # never above the analytic value
+    assert abs(r.primal / p_kept - exact) < 1e-4
+    assert abs(r.certified_lower / p_kept - exact) < 1e-4
+    assert r.certified_lower / p_kept - h2(q) == pytest.approx(1 - 2 * h2(q), abs=1e-4)
+    assert r.gap < 1e-6 and r.status == "optimal"
+
+
+def test_six_state_value_and_threshold():
+    # Six-state, depolarising channel: H(Z|E) = 1 - H(lambda) + h(Q) (from memory); one-way rate 1 - H(lambda)
+    # vanishes at Q near 12.6% (Lo 2001, value from memory).
+    for q in (0.05, 0.10):
+        prob, p_kept = six_state_depolarising(q)
+        r = solve(prob)
+        lam = (1 - 1.5 * q, q / 2, q / 2, q / 2)
+        exact = 1 - entropy(lam) + h2(q)
+        assert r.certified_lower / p_kept <= exact
+        assert abs(r.certified_lower / p_kept - exact) < 1e-4
+    rates = {}
+    for q in (0.125, 0.128):
+        prob, p_kept = six_state_depolarising(q)
+        rates[q] = solve(prob).certified_lower / p_kept - h2(q)
+    assert rates[0.125] > 0 > rates[0.128]
+    # and six-state beats BB84 at the same error rate (BB84 threshold 11.0%)
+    prob, p_kept = bb84_depolarising(0.125)
+    assert solve(prob).primal / p_kept - h2(0.125) < 0 < rates[0.125]
+
+
+def test_detector_mismatch_costs_key_and_more_with_more_mismatch():
+    # Efficiency mismatch (detector 1 at eta, detector 0 at 1): less key per round than matched detectors
+    # (eta = 1), and the loss grows as eta falls.  Rate per round = H(Z|E) - p_kept h(e_Z).
+    q = 0.03
+    rates = []
+    for eta in (1.0, 0.9, 0.7, 0.5):
+        prob, p_kept = bb84_mismatch(q, eta)
+        r = solve(prob)
+        stats = model.expected_statistics(prob, _honest_mismatch_state(q))
+        e_z = (stats[0, 1] + stats[1, 0]) / stats[0:2, 0:2].sum()
+        rates.append(r.certified_lower - p_kept * h2(e_z))
+        # per kept round too: the mismatch lowers H(Z|E) below 1 - h(q)
+        assert r.certified_lower / p_kept <= 1 - h2(q) + 1e-12
+    assert all(a > b for a, b in zip(rates, rates[1:]))
+
+
+def _honest_mismatch_state(q):
+    from finitekey.numerical.reference import werner
+    emb = np.zeros((3, 2))
+    emb[0, 0] = emb[1, 1] = 1.0
+    big = np.kron(np.eye(2), emb)
+    return big @ werner(q) @ big.T
+
+
+def test_four_dim_bob_is_facially_reduced_and_matches():
+    # Bob's vacuum and double-click flag make G(rho) rank deficient: the factors drop them (facial reduction),
+    # and the kept rounds see a depolarised qubit, so H(Z|E) = 1 - h(q) per kept round (Shor-Preskill 2000).
+    prob, p_kept = bb84_four_dim_bob(0.03)
+    (blk,) = model.key_map_blocks(prob)
+    assert blk.g.shape == (4, prob.dim)          # rank 4 of 8
+    r = solve(prob)
+    assert r.certified_lower / p_kept <= 1 - h2(0.03)
+    assert abs(r.certified_lower / p_kept - (1 - h2(0.03))) < 1e-4
+
+
+def test_interval_constraints_converge():
+    # Intervals (as after finite-size relaxation) put the minimum on a face; the certified gap stays small and
+    # the value lies below the equality-constrained one (a larger feasible set).
+    import dataclasses
+    prob, p_kept = bb84_depolarising(0.05)
+    wide = tuple(model.Constraint(c.operator, c.lower - 0.002, c.upper + 0.002, c.label) for c in prob.constraints)
+    r = solve(dataclasses.replace(prob, constraints=wide))
+    assert r.gap < 1e-6
+    assert r.certified_lower / p_kept < 1 - h2(0.05) - 1e-3
+
+
+def test_certificate_holds_for_any_multipliers():
+    # The bound needs no dual feasibility: y = 0 gives lambda_min(grad), a weak but valid bound below the optimum.
+    prob, p_kept = bb84_depolarising(0.05)
+    cons = model.all_constraints(prob)
+    blocks = model.key_map_blocks(prob)
+    rho = np.eye(prob.dim) / prob.dim
+    weak = certify(prob, blocks, rho, np.zeros(len(cons)), cons)
+    assert weak.bound_bits < 1 - h2(0.05)
+    # ... and for the honest state with the solver's multipliers it is within 1e-4 of the optimum
+    r = solve(prob)
+    assert weak.bound_bits < r.certified_lower
+
+
+def test_lambda_min_lower_against_mpmath():
+    # Certified smallest eigenvalue vs mpmath at 50 digits (outside reference): below it and within 1e-12.
+    import mpmath
+    rng = np.random.default_rng(7)
+    for n in (3, 8):
+        a = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+        a = (a + a.conj().T) / 2
+        lo = float(lambda_min_lower(_acb_mat(a), a))
+        with mpmath.workdps(50):
+            ev = mpmath.eighe(mpmath.matrix(a.tolist()), eigvals_only=True)
+            ref = min(float(mpmath.re(e)) for e in ev)
+        assert lo <= ref and ref - lo < 1e-12
+
+
+def test_objective_gradient_is_the_derivative():
+    # Finite differences of f along a random Hermitian direction equal Tr(grad f . direction).
+    prob, _ = bb84_four_dim_bob(0.05)
+    obj = Objective(model.key_map_blocks(prob))
+    rng = np.random.default_rng(3)
+    a = rng.normal(size=(prob.dim, prob.dim))
+    rho = a @ a.T + np.eye(prob.dim)
+    rho /= np.trace(rho)
+    d = rng.normal(size=(prob.dim, prob.dim))
+    d = (d + d.T) / 2
+    step = 1e-6
+    fd = (obj.value(rho + step * d) - obj.value(rho - step * d)) / (2 * step)
+    assert fd == pytest.approx(float(np.trace(obj.gradient(rho) @ d)), rel=1e-6, abs=1e-9)
+    assert float(np.trace(rho @ obj.gradient(rho))) == pytest.approx(obj.value(rho), abs=1e-12)  # homogeneity
+
+
+def test_solver_input_errors():
+    prob, _ = bb84_depolarising(0.05)
+    with pytest.raises(InputError, match="backend"):
+        solve(prob, backend="mosek")
+    with pytest.raises(InputError, match="tol"):
+        solve(prob, tol=-1)
+    with pytest.raises(InputError, match="problem"):
+        solve("bb84")
+    # statistics no quantum state has: p(Z0, Z0) = 0.9 while rho_A = 1/2 allows at most p_z^2/2 = 1/8
+    import dataclasses
+    bad = dataclasses.replace(prob, constraints=(model.Constraint(prob.constraints[0].operator, 0.9, 0.9, "p(0,0)"),))
+    with pytest.raises(InputError, match="feasible"):
+        solve(bad)
