@@ -59,11 +59,11 @@ def main() -> None:
     rows.append(("batch, 8000 different, 2 processes", two, "blocks/s", f"ratio {two / one:.2f}x"))
     sc = bb84.BB84_PROTOCOL.default_scenario()
     t = time.perf_counter()
-    bb84.design(sc)
+    bb84.design.design(sc)
     rows.append(("design (built-in scenario, exact)", time.perf_counter() - t, "s", "<= 0.5 s"))
     for target in ("positive", "bits=1000000", "fraction=0.5"):
         t = time.perf_counter()
-        bb84.blocksize(sc, BlockTarget.parse(target))
+        bb84.design.blocksize(sc, BlockTarget.parse(target))
         rows.append((f"blocksize --target {target}", time.perf_counter() - t, "s", "<= 0.5 s"))
     width = max(len(r[0]) for r in rows)
     for name, value, unit, target in rows:

@@ -22,7 +22,7 @@ from threadpoolctl import threadpool_info
 
 from finitekey import protocols
 from finitekey._threads import one_blas_thread
-from finitekey.optimize import decoy_design as DD
+from finitekey.protocols.decoy_bb84 import design as DD
 from finitekey.protocols import decoy_bb84 as D
 
 

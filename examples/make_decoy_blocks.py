@@ -17,8 +17,8 @@ import math
 import pathlib
 
 from finitekey import load_scenario
-from finitekey.optimize import decoy_design as DD
 from finitekey.protocols import decoy_bb84 as D
+from finitekey.protocols.decoy_bb84 import design as DD
 
 HERE = pathlib.Path(__file__).resolve().parent
 
@@ -45,7 +45,7 @@ def main() -> None:
              "key_basis": {"detections": kd, "errors": ke}, "test_basis": {"detections": td, "errors": te},
              "ec_leak_bits": leak, "eps_sec": sc.eps_sec, "eps_cor": sc.eps_cor}
     (HERE / "blocks" / "decoy_block.json").write_text(json.dumps(block, indent=1) + "\n")
-    # the acceptance rule of decoy_design.acceptance_test (6 standard deviations per count, 2% leakage
+    # the acceptance rule of DD.acceptance_test (6 standard deviations per count, 2% leakage
     # headroom), applied to this block's expected counts at its rounded intensities
     acc = {"statistics": "chernoff", "ec_leak_bits": int(math.ceil(leak * 1.02)),
            **DD.acceptance_ranges(c.key_detections, c.test_detections, c.test_errors, sigmas=6.0)}

@@ -73,10 +73,10 @@ def test_threshold_matches_one_minus_h_minus_fh(f):
     below = with_field(sc, "channel.qber", q_thr - 2e-3)
     above = with_field(sc, "channel.qber", q_thr + 1e-4)
     assert BB84_PROTOCOL.asymptotic_rate(below) > 0 > BB84_PROTOCOL.asymptotic_rate(above)
-    assert bb84.design(below).expected.secret_key_length > 0
-    assert bb84.design(above).expected.secret_key_length == 0
+    assert bb84.design.design(below).expected.secret_key_length > 0
+    assert bb84.design.design(above).expected.secret_key_length == 0
     with pytest.raises(InputError) as ei:
-        bb84.blocksize(above, BlockTarget.parse("positive"))
+        bb84.design.blocksize(above, BlockTarget.parse("positive"))
     assert ei.value.field == "channel.qber"
     # the threshold of the package's own asymptotic rate agrees with the mpmath root
     from scipy.optimize import brentq
@@ -88,7 +88,7 @@ def test_large_block_rate_within_one_percent_of_asymptotic():
     # At 1e12 detections the finite-key rate is within 1% of 1 - h(Q) - f h(Q) (Shor-Preskill limit with f).
     sc = parse_scenario({"channel": {"qber": 0.02}, "budget": {"detections": 10**12},
                          "security": {"eps_sec": EPS_SEC, "eps_cor": EPS_COR}, "reconciliation": {"efficiency": 1.1}})
-    d = bb84.design(sc)
+    d = bb84.design.design(sc)
     r_inf = 1 - 2.1 * float(mp_h(0.02))
     ratio = d.secret_key_rate_per_detection / r_inf
     assert 0.99 <= ratio < 1.0
@@ -279,7 +279,7 @@ def test_sifting_fraction_matches_monte_carlo(make_rng):
 def test_design_counts_follow_sifting():
     sc = parse_scenario({"channel": {"qber": 0.02}, "budget": {"detections": 10**6},
                          "security": {"eps_sec": EPS_SEC, "eps_cor": EPS_COR}, "design": {"p_x": 0.8}})
-    d = bb84.design(sc)
+    d = bb84.design.design(sc)
     c = d.expected_counts
     assert abs(c["key_bits"] - 0.64e6) <= 1 and abs(c["test_bits"] - 0.04e6) <= 1
     assert d.parameters["sifting_fraction"] == pytest.approx(0.68)
@@ -290,7 +290,7 @@ def test_phase_error_bound_fails_no_more_often_than_eps(stats, make_rng):
     # Monte Carlo (seeded numpy Generator): T errors placed at random among n + k bits, k test bits sampled
     # uniformly; the bound on the key-bit errors may fail with probability at most its eps (+ 4 sigma margin).
     from finitekey.bounds.hypergeometric_exact import key_errors_upper
-    from finitekey.protocols.bb84 import _compiled
+    from finitekey.protocols.bb84.analysis import _compiled
     rng = make_rng(2012)
     n, k, eps_pe = 2000, 400, 0.05
     eps_s = math.sqrt(eps_pe)
@@ -325,9 +325,9 @@ def test_phase_error_bound_fails_no_more_often_than_eps(stats, make_rng):
 # ---------------------------------------------------------------------------------------------------------------
 def test_design_beats_unbiased_and_default_split():
     sc = BB84_PROTOCOL.default_scenario()
-    d = bb84.design(sc)
-    unbiased = bb84.design(with_field(sc, "design.p_x", 0.5))
-    fixed_split = bb84.design(with_field(sc, "design.optimise_split", False))
+    d = bb84.design.design(sc)
+    unbiased = bb84.design.design(with_field(sc, "design.p_x", 0.5))
+    fixed_split = bb84.design.design(with_field(sc, "design.optimise_split", False))
     assert d.expected.secret_key_length > unbiased.expected.secret_key_length
     assert d.expected.secret_key_length >= fixed_split.expected.secret_key_length
     assert d.parameters["p_x"] > 0.5
@@ -340,7 +340,7 @@ def test_blocksize_reaches_target_and_is_nearly_smallest(text):
     sc = parse_scenario({"channel": {"qber": 0.02}, "budget": {"detections": 10**6},
                          "security": {"eps_sec": EPS_SEC, "eps_cor": EPS_COR}})
     t = BlockTarget.parse(text)
-    res = bb84.blocksize(sc, t)
+    res = bb84.design.blocksize(sc, t)
     r_inf = BB84_PROTOCOL.asymptotic_rate(sc)
 
     def meets(d, N):
@@ -350,7 +350,7 @@ def test_blocksize_reaches_target_and_is_nearly_smallest(text):
     assert res.size_kind == "detections"
     assert meets(res.design, res.size)
     smaller = int(res.size * 0.98)
-    assert not meets(bb84.design(sc, detections=smaller), smaller)
+    assert not meets(bb84.design.design(sc, detections=smaller), smaller)
 
 
 def test_block_target_parse():

@@ -76,7 +76,7 @@ def test_design_with_second_order_model_is_below_efficiency_one():
     from finitekey.protocols import bb84
     base = {"channel": {"qber": 0.02}, "budget": {"detections": 10**5},
             "security": {"eps_sec": 1e-10, "eps_cor": 1e-15}, "design": {"p_x": 0.9}}
-    so = bb84.design(bb84.parse_scenario({**base, "reconciliation": {"model": "second_order"}}))
-    f1 = bb84.design(bb84.parse_scenario({**base, "reconciliation": {"efficiency": 1.0}}))
+    so = bb84.design.design(bb84.parse_scenario({**base, "reconciliation": {"model": "second_order"}}))
+    f1 = bb84.design.design(bb84.parse_scenario({**base, "reconciliation": {"efficiency": 1.0}}))
     assert so.expected.secret_key_length < f1.expected.secret_key_length
     assert so.expected.terms["ec_leakage"] > f1.expected.terms["ec_leakage"]

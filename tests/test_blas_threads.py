@@ -8,8 +8,8 @@ import pytest
 from threadpoolctl import threadpool_info, threadpool_limits
 
 from finitekey import protocols
-from finitekey.optimize import decoy_design
-from finitekey.protocols import bb84 as bb84_module
+from finitekey.protocols.bb84 import design as bb84_design
+from finitekey.protocols.decoy_bb84 import design as decoy_design
 from finitekey.protocols._result import BlockTarget
 
 
@@ -30,7 +30,7 @@ def _spy(record):
 
 @pytest.mark.parametrize("method, target_module, target_name", [
     ("design", decoy_design, "design"), ("blocksize", decoy_design, "blocksize"), ("reach", decoy_design, "reach"),
-    ("design", bb84_module, "design"), ("blocksize", bb84_module, "blocksize"),
+    ("design", bb84_design, "design"), ("blocksize", bb84_design, "blocksize"),
 ])
 def test_entry_points_use_one_blas_thread_and_restore_it(method, target_module, target_name, monkeypatch):
     proto = protocols.get("decoy-bb84" if target_module is decoy_design else "bb84")

@@ -6,7 +6,7 @@ import pytest
 
 from finitekey.channel import repeaterless_bound
 from finitekey.errors import InputError
-from finitekey.optimize import decoy_design as DD
+from finitekey.protocols.decoy_bb84 import design as DD
 from finitekey.protocols import BlockTarget, get
 from finitekey.protocols import decoy_bb84 as D
 

@@ -161,7 +161,7 @@ def test_acceptance_test_from_a_design():
     """From the built-in design: a 6-sigma acceptance test certifies a fixed length below the design's
     variable-length chernoff key at the same expected counts, and Poisson blocks around those counts are
     accepted with that length (numpy Monte Carlo, seeded)."""
-    from finitekey.optimize import decoy_design as DD
+    from finitekey.protocols.decoy_bb84 import design as DD
     sc = D.default_scenario()
     res = DD.design(sc, "chernoff")
     acc, fixed = DD.acceptance_test(res, sigmas=6.0, statistics="chernoff")

@@ -10,6 +10,7 @@ from scipy import stats
 from finitekey.channel import Detector, Link, LinkModel
 from finitekey.protocols import _decoy_lp as LP
 from finitekey.protocols import decoy_bb84 as D
+from finitekey.protocols.decoy_bb84 import analysis as DA
 
 MODEL = LinkModel(Link(50.0, 0.2), Detector(0.1, 6e-7, 0.0, 0.005))
 
@@ -42,7 +43,7 @@ def test_lp_without_totals_equals_closed_form(method, L, N):
     model = LinkModel(Link(L, 0.2), Detector(0.1, 6e-7, 0.0, 0.005))
     b = _block((0.5, 0.1, 2e-4), (0.7, 0.2, 0.1), N, model=model)
     eps = 1e-12
-    cf = D._estimates_certified(b, method, "three-intensity", eps, 128)
+    cf = DA._estimates_certified(b, method, "three-intensity", eps, 128)
     lp = LP.estimates(b, method, eps, use_total=False)
     for k in ("s0", "s1", "s1z"):
         c, l = float(cf[k].lower()), float(lp[k].lower())
@@ -60,7 +61,7 @@ def test_lp_without_totals_equals_closed_form(method, L, N):
 
 def test_lp_with_totals_at_least_as_tight():
     b = _block((0.5, 0.1, 2e-4), (0.7, 0.2, 0.1))
-    cf = D._estimates_certified(b, "exact", "three-intensity", 1e-12, 128)
+    cf = DA._estimates_certified(b, "exact", "three-intensity", 1e-12, 128)
     lp = LP.estimates(b, "exact", 1e-12)
     assert float(lp["s1"].lower()) >= float(cf["s1"].lower()) * (1 - 1e-9)
     assert float(lp["v1"].upper()) <= float(cf["v1"].upper()) * (1 + 1e-9)

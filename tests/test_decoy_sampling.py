@@ -10,7 +10,7 @@ from flint import arb
 
 from finitekey.bounds.hypergeometric_exact import key_errors_upper
 from finitekey.protocols import _decoy_analysis as A
-from finitekey.protocols import decoy_bb84 as D
+from finitekey.protocols.decoy_bb84 import analysis as DA
 
 # (key bits n, test bits k, test errors e): the few-error points found by review, where the 2014 gamma alone
 # falls below the exact bound (gamma -> 0 as e -> 0).
@@ -22,7 +22,7 @@ FEW_ERRORS = [(1423894, 51500, 0), (1423894, 51500, 1), (1423894, 51500, 5), (14
 @pytest.mark.parametrize("eps", [1e-10 / 21, 1e-6])
 def test_hoeffding_phase_bound_not_below_exact_hypergeometric(n, k, e, eps):
     est = {"s1": arb(n), "s1z": arb(k), "v1": arb(e)}
-    phi, extra = D._phase_error("hoeffding", est, eps, 128)
+    phi, extra = DA._phase_error("hoeffding", est, eps, 128)
     exact = key_errors_upper(n, k, e, eps) / n   # tightest valid (Neyman) bound on the key-bit rate
     assert float(phi.lower()) >= min(exact, 0.5)
     # the 2014 term is still reported, and the rigorous term is what carries the few-error points
@@ -33,7 +33,7 @@ def test_hoeffding_phase_bound_not_below_exact_hypergeometric(n, k, e, eps):
 def test_gamma_2014_alone_is_below_the_exact_bound_at_zero_errors():
     # documents why gamma is not used alone: at zero test errors it is ~1e-151 (review counterexample)
     est = {"s1": arb(1423894), "s1z": arb(51500), "v1": arb(0)}
-    phi, extra = D._phase_error("hoeffding", est, 1e-10 / 21, 128)
+    phi, extra = DA._phase_error("hoeffding", est, 1e-10 / 21, 128)
     exact = key_errors_upper(1423894, 51500, 0, 1e-10 / 21) / 1423894
     assert extra["sampling_term_2014_gamma"] < 1e-100 < exact
     assert float(phi.lower()) >= exact

@@ -66,7 +66,7 @@ def test_fields_lists_every_scenario_and_block_field(name, capsys):
     assert set(proto.scenario_fields()) <= set(listed)
     assert set(listed) - set(proto.scenario_fields()) <= {"protocol.name"}
     module = bb84 if name == "bb84" else decoy_bb84
-    assert [r["field"] for r in doc["block"]] == list(module._BLOCK_FIELDS)
+    assert [r["field"] for r in doc["block"]] == list(module.block._BLOCK_FIELDS)
     assert "caution" in doc
     for r in doc["scenario"] + doc["block"]:
         assert r["description"] and r["allowed"] and r["type"] and r["unit"]

@@ -358,6 +358,7 @@ def test_every_protocol_has_a_batch_function():
 
 def test_decoy_batch_equals_block_by_block(monkeypatch):
     from finitekey.protocols import decoy_bb84 as mod
+    from finitekey.protocols.decoy_bb84 import analysis
 
     variants = [DECOY_BLOCK, dict(DECOY_BLOCK, ec_leak_bits=30000000), dict(DECOY_BLOCK, ec_leak_bits=20000000)]
     blocks = [mod.parse_block(b) for b in variants]
@@ -365,7 +366,7 @@ def test_decoy_batch_equals_block_by_block(monkeypatch):
     batch = protocols.get("decoy-bb84").key_length_batch(blocks, "chernoff")
     assert [r.to_dict() for r in batch] == [r.to_dict() for r in single]
     assert len({r.secret_key_length for r in single}) == 3  # the three blocks differ, so order is checked
-    monkeypatch.setattr(mod, "_PARALLEL_MIN", 2)
+    monkeypatch.setattr(analysis, "_PARALLEL_MIN", 2)
     parallel = mod.key_length_batch(blocks, "chernoff", jobs=2)
     assert [r.to_dict() for r in parallel] == [r.to_dict() for r in single]
     with pytest.raises(InputError):

@@ -16,7 +16,7 @@ from finitekey.cli import main
 from finitekey.protocols import KEY, BlockTarget, DesignResult, KeyLengthResult, NoKeyReason, ReachResult, Status
 from finitekey.protocols import bb84 as B
 from finitekey.protocols import decoy_bb84 as D
-from finitekey.optimize import decoy_design as DD
+from finitekey.protocols.decoy_bb84 import design as DD
 from finitekey.report.figures import series
 from finitekey.report.formats import to_csv, to_markdown
 from finitekey.report.plots import Curve, rate_figure
@@ -115,14 +115,14 @@ def test_bb84_design_beyond_threshold_and_too_small():
             "security": {"eps_sec": 1e-10, "eps_cor": 1e-15}}
     # 1 - 2.1 h(0.12) < 0 (h from scipy): no key at any size
     assert 1 - 2.1 * h2(0.12) < 0
-    d = B.design(B.parse_scenario({**base, "reconciliation": {"efficiency": 1.1}}))
+    d = B.design.design(B.parse_scenario({**base, "reconciliation": {"efficiency": 1.1}}))
     assert d.expected.secret_key_length == 0 and d.status.reason is NoKeyReason.THRESHOLD_EXCEEDED
     j = d.to_dict()
     assert j["parameters"] is None and "p_x" in j["parameters_tried"]
     assert j["status"]["reason"] == "threshold_exceeded"
-    small = B.design(B.parse_scenario({**base, "channel": {"qber": 0.02}, "budget": {"detections": 3}}))
+    small = B.design.design(B.parse_scenario({**base, "channel": {"qber": 0.02}, "budget": {"detections": 3}}))
     assert small.status.reason is NoKeyReason.BLOCK_TOO_SMALL
-    ok = B.design(B.parse_scenario({**base, "channel": {"qber": 0.02}}))
+    ok = B.design.design(B.parse_scenario({**base, "channel": {"qber": 0.02}}))
     assert ok.status.key and ok.to_dict()["parameters"]["p_x"] > 0.5
 
 
@@ -268,7 +268,7 @@ def test_bb84_blocksize_result_carries_the_status():
     sc = B.parse_scenario({"protocol": {"name": "bb84"}, "channel": {"qber": 0.02},
                            "budget": {"signals": 1e9, "detection_probability": 1e-3},
                            "security": {"eps_sec": 1e-10, "eps_cor": 1e-15}})
-    r = B.blocksize(sc, BlockTarget.parse("positive"))
+    r = B.design.blocksize(sc, BlockTarget.parse("positive"))
     assert r.status.key and r.to_dict()["status"]["key"] is True
     # a signal budget: the echo gives the signals found, not the scenario's 1e9
     assert r.design.scenario["budget"]["signals"] == r.size
@@ -294,7 +294,7 @@ def test_detection_budget_with_signal_rate_needs_the_detection_probability(tmp_p
 
 
 def test_detection_budget_with_probability_gives_signal_rates():
-    d = B.design(B.parse_scenario(_lab({"detections": 2000000, "detection_probability": 0.02,
+    d = B.design.design(B.parse_scenario(_lab({"detections": 2000000, "detection_probability": 0.02,
                                         "signal_rate_hz": 1e8})))
     ell = d.expected.secret_key_length
     signals = 2000000 / 0.02                       # by hand: 1e8 signals
@@ -305,7 +305,7 @@ def test_detection_budget_with_probability_gives_signal_rates():
 
 
 def test_detection_budget_alone_has_no_per_signal_rate(capsys, tmp_path):
-    d = B.design(B.parse_scenario(_lab({"detections": 2000000})))
+    d = B.design.design(B.parse_scenario(_lab({"detections": 2000000})))
     assert d.secret_key_rate_per_signal is None and d.secret_key_rate_bps is None and d.block_fill_time_s is None
     assert d.to_dict()["secret_key_rate_per_signal"] is None
     p = tmp_path / "s.toml"

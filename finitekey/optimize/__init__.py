@@ -1,9 +1,10 @@
-"""Parameter design and block-size solvers.
+"""Protocol-independent design entry points.
 
-:mod:`._common` holds protocol-independent numerical helpers (numpy/scipy
-only, so protocol modules use them without an import cycle);
-:mod:`.dispatch` holds the protocol-independent entry points that dispatch a
-scenario mapping on its ``[protocol] name`` through the registry.
+:mod:`.dispatch` holds the entry points that dispatch a scenario mapping on its
+``[protocol] name`` through the registry.  Each protocol's own design (free
+parameters, block size, reach) lives in its package,
+``finitekey/protocols/NAME/design.py``; the generic searches it uses are in
+:mod:`finitekey.searching` (numpy/scipy only), re-exported here.
 """
 
 from __future__ import annotations

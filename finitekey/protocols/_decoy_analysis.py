@@ -191,6 +191,32 @@ def kato_count_interval_certified(observed: int, n: int, a_lo: float, a_hi: floa
     return lo, hi
 
 
+def count_intervals_certified(method: str, counts, eps: float, prec: int = 128, kato=None):
+    """Certified intervals on the expected counts of one table, one per intensity: ``(lower ends, upper ends)``.
+
+    ``kato = (pulses, expected list or None)`` for ``method="kato"`` (Kato intervals on sums of conditional
+    probabilities, tilts from the pre-registered expected counts); otherwise :func:`count_interval_certified`
+    of each count within the table's total.
+    """
+    if method == "kato":
+        n, expected = kato
+        lo, hi = [], []
+        for i, c in enumerate(counts):
+            m = None if expected is None else expected[i]
+            a_lo, a_hi = kato_tilt(n, m, eps, "lower"), kato_tilt(n, m, eps, "upper")
+            a, b = kato_count_interval_certified(c, n, a_lo, a_hi, eps, prec)
+            lo.append(a)
+            hi.append(b)
+        return lo, hi
+    total = sum(counts)
+    lo, hi = [], []
+    for c in counts:
+        a, b = count_interval_certified(method, c, total, eps, prec)
+        lo.append(a)
+        hi.append(b)
+    return lo, hi
+
+
 def kato_actual_lower(lam_lower, n: int, a: float, eps: float, prec: int = 128):
     """Lower bound on an actual count ``Gamma_n`` from a lower bound on its conditional sum ``Lambda_n``.
 

@@ -193,12 +193,10 @@ def basis_bounds(mu, p, lo, hi, total, targets, use_total: bool = True):
 
 def estimates(block, method: str, eps_c: float, prec: int = 128, use_total: bool = True) -> dict:
     """s0, s1 (key basis, lower), s1z (test, lower), v1 (test errors, upper) by linear programming."""
-    from .decoy_bb84 import _intervals  # shared interval code
-
     mu, p = block.intensities, block.intensity_probabilities
-    kl, kh = _intervals(method, block.key_detections, eps_c, prec)
-    tl, th = _intervals(method, block.test_detections, eps_c, prec)
-    el, eh = _intervals(method, block.test_errors, eps_c, prec)
+    kl, kh = A.count_intervals_certified(method, block.key_detections, eps_c, prec)
+    tl, th = A.count_intervals_certified(method, block.test_detections, eps_c, prec)
+    el, eh = A.count_intervals_certified(method, block.test_errors, eps_c, prec)
     s0, s1 = basis_bounds(mu, p, kl, kh, sum(block.key_detections), [(0, 1), (1, 1)], use_total)
     (s1z,) = basis_bounds(mu, p, tl, th, sum(block.test_detections), [(1, 1)], use_total)
     (v1,) = basis_bounds(mu, p, el, eh, sum(block.test_errors), [(1, -1)], use_total)

@@ -130,7 +130,7 @@ def reference_curves(table: SweepTable, loaded, unit: str = "bit/pulse") -> list
     """The asymptotic curve and the repeaterless bound along the first axis, when the protocol offers them.
 
     * asymptotic rate: ``bb84.asymptotic_rate`` (per detection) or, for
-      ``decoy-bb84``, :func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate`
+      ``decoy-bb84``, :func:`finitekey.protocols.decoy_bb84.scenario.optimal_gllp_rate`
       with infinitely many decoys and no sifting loss (per pulse);
     * repeaterless bound: :func:`finitekey.channel.repeaterless_bound` at the
       fibre transmittance :math:`\\eta = 10^{-\\mathrm{loss}/10}` of the link (per

@@ -13,7 +13,7 @@ phase-error bound beyond 1/2 continued linearly upwards.  It is therefore contin
 also where no key exists -- there is no zero plateau for a starting point to sit on.  Several starts chosen
 from the expected number of detections (few detections: more test basis and decoys) are refined by L-BFGS-B
 with a batched forward-difference gradient, and the best point is then evaluated by the certified analysis
-(:func:`finitekey.protocols.decoy_bb84.key_length`) at the rounded expected counts; only that certified
+(:func:`finitekey.protocols.decoy_bb84.analysis.key_length`) at the rounded expected counts; only that certified
 length is reported.  For the ``exact`` and ``chernoff`` statistics the float objective bounds the phase error
 with the Chernoff-Hoeffding relative-entropy bound for sampling without replacement (the smooth float form
 of the bound the final evaluation certifies, taking the test count's upper bound equal to its lower bound).
@@ -31,14 +31,16 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import optimize as _opt
 
-from ..domains import Domain
-from ..errors import ComputationError, InputError
-from ..protocols import _decoy_analysis as A
-from ..protocols import decoy_bb84 as D
-from ..protocols._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason,
-                                 ReachResult, Status, design_no_key)
+from ...domains import Domain
+from ...errors import ComputationError, InputError
+from .. import _decoy_analysis as A
+from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
+                       Status, design_no_key)
+from .analysis import (CHAIN_RULES, DEFAULT_STATISTICS, count_events, key_length, term_specs,
+                       three_intensity_condition)
+from .block import ACCEPTANCE_STATISTICS, PROTOCOL_NAME, SECRECY_TERMS, DecoyBlock, parse_block
+from .scenario import BLOCK_UNITS, DecoyScenario, optimal_gllp_rate, parse_scenario
 
 __all__ = ["DesignProblem", "design", "reach", "blocksize", "objective_problem"]
 
@@ -63,7 +65,7 @@ MAX_PULSES = 1e15
 class DesignProblem:
     """The float objective of one scenario and statistics method, over an unconstrained vector."""
 
-    scenario: D.DecoyScenario
+    scenario: DecoyScenario
     statistics: str
 
     # ---- parameter layout -----------------------------------------------------------------------------
@@ -216,8 +218,8 @@ class DesignProblem:
         wz = N * p * ((1 - qx) ** 2 * live)
         kd, ke, td, te = wx * d, wx * e, wz * d, wz * e
         analysis = "three-intensity" if self.k == 3 else "two-intensity"
-        n_count = D.count_events(self.k, analysis)
-        specs = D.term_specs(n_count, analysis)
+        n_count = count_events(self.k, analysis)
+        specs = term_specs(n_count, analysis)
         w = [s.weight for s in specs[:4]]
         # pinned terms (two intensities: eps_cor for an undetected correction failure) come off first
         budget = sc.eps_sec - sum(s.weight * sc.eps_cor for s in specs if s.pinned is not None)
@@ -267,7 +269,7 @@ class DesignProblem:
         h = A.binary_entropy_float(np.minimum(phi, 0.5)) + 4.0 * np.maximum(phi - 0.5, 0.0)
         qber = np.clip(ke.sum(axis=0) / kdt, 1e-15, 0.5)
         leak = sc.ec_efficiency * kdt * A.binary_entropy_float(qber)
-        pen = (D.CHAIN_RULES * np.log(2 / (eps_ch * eps_ch)) + 2 * np.log(1 / (2 * eps_pa))
+        pen = (CHAIN_RULES * np.log(2 / (eps_ch * eps_ch)) + 2 * np.log(1 / (2 * eps_pa))
                + np.log(2 / sc.eps_cor)) / _LN2
         # s1 < 0 is charged directly (s1 (1 - h) would turn positive when both factors are negative)
         single = np.maximum(s1, 0.0) * (1 - h) + np.minimum(s1, 0.0)
@@ -334,11 +336,11 @@ _CHAIN_SHARE = _FIXED_SHARE * 2 / 3
 
 
 def _default_split(k: int):
-    specs = D.term_specs(D.count_events(k, "three-intensity" if k == 3 else "two-intensity"))
+    specs = term_specs(count_events(k, "three-intensity" if k == 3 else "two-intensity"))
     return [s.default_fraction for s in specs[:4]]
 
 
-def objective_problem(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS) -> DesignProblem:
+def objective_problem(scenario: DecoyScenario, statistics: str = DEFAULT_STATISTICS) -> DesignProblem:
     """The design problem (float objective and parameter map) of a scenario; used by the benchmark.
 
     Parameters
@@ -354,7 +356,7 @@ def objective_problem(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STA
         raise InputError("protocol.intensity_count", scenario.intensity_count,
                          "2 or 3 for design (the closed forms); larger counts are analysed by key_length only")
     if scenario.intensities is not None and scenario.intensity_count == 3 and \
-            not D.three_intensity_condition(scenario.intensities):
+            not three_intensity_condition(scenario.intensities):
         raise InputError("protocol.intensities", list(scenario.intensities),
                          "three intensities with mu1 > mu2 + mu3 and mu2 > mu3 >= 0")
     return DesignProblem(scenario, statistics)
@@ -368,6 +370,7 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
     if problem.dim == 0:
         x = np.zeros(0)
         return x, float(problem.objective(x[:, None])[0])
+    from scipy import optimize as _opt  # here, not at module top: it adds about 0.2 s to every start-up
     box = problem.bounds()
     lo, hi = np.array([b[0] for b in box]), np.array([b[1] for b in box])
     cand = np.clip(np.array(starts if starts is not None else problem.starts()), lo, hi)
@@ -403,6 +406,7 @@ def optimise(problem: DesignProblem, starts=None, refine: int = 3, continuation:
 def _local(problem, x, box):
     """Local L-BFGS-B refinement inside a trust box of +-1 around ``x`` (keeps the first quasi-Newton steps
     on the branch ``x`` is on)."""
+    from scipy import optimize as _opt  # here, not at module top: it adds about 0.2 s to every start-up
     local = [(max(a, xi - 1.0), min(b, xi + 1.0)) for (a, b), xi in zip(box, x)]
     with np.errstate(all="ignore"):
         res = _opt.minimize(problem.negative_with_gradient, x, jac=True, method="L-BFGS-B", bounds=local,
@@ -436,14 +440,14 @@ def _continue_in_block_size(problem, best_x, best_v, box, alternatives=None):
     return best_x, best_v
 
 
-def _scaled(sc: D.DecoyScenario, factor: float) -> D.DecoyScenario:
+def _scaled(sc: DecoyScenario, factor: float) -> DecoyScenario:
     """The scenario with its block size (pulses or key-basis detections) multiplied by ``factor``."""
     if sc.pulses is not None:
         return replace(sc, pulses=sc.pulses * factor)
     return replace(sc, key_detections=max(1, int(round(sc.key_detections * factor))))
 
 
-def block_pulses(sc: D.DecoyScenario, mu, p, qx) -> float:
+def block_pulses(sc: DecoyScenario, mu, p, qx) -> float:
     """Pulses per block at these parameters: the scenario's, or with ``key_detections`` the integer nearest
     ``T / (expected key-basis detections per pulse)`` (so the expected key-basis detections are within half
     a pulse's worth of ``T``).  This number is fixed before the block; the block is closed after it.
@@ -477,16 +481,16 @@ def _expected_block(problem: DesignProblem, theta) -> tuple:
     nX = sum(kd)
     q = sum(ke) / nX if nX else 0.0
     leak = int(math.ceil(sc.ec_efficiency * nX * float(A.binary_entropy_float(q)))) if 0 < q else 0
-    split_d = None if split is None else {n: float(split[j, 0]) for j, n in enumerate(D.SECRECY_TERMS)}
+    split_d = None if split is None else {n: float(split[j, 0]) for j, n in enumerate(SECRECY_TERMS)}
     if split_d is not None:
         tot = math.fsum(split_d.values())
         split_d = {k: v / tot for k, v in split_d.items()}
-    block = D.DecoyBlock(tuple(float(x) for x in mu), tuple(float(x) for x in p), tuple(kd), tuple(ke), tuple(td),
+    block = DecoyBlock(tuple(float(x) for x in mu), tuple(float(x) for x in p), tuple(kd), tuple(ke), tuple(td),
                          tuple(te), leak, sc.eps_sec, sc.eps_cor, split_d)
     return block, c, qx, N
 
 
-def design(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, starts=None,
+def design(scenario: DecoyScenario, statistics: str = DEFAULT_STATISTICS, starts=None,
            continuation: bool = True) -> DesignResult:
     """Optimise the free parameters of ``scenario`` for the largest expected key.
 
@@ -528,7 +532,7 @@ def _best_certified(problem, theta, fval, alternatives) -> tuple:
 
 def _split_shares(ledger) -> dict:
     """Shares of the split secrecy terms (pinned terms left out), in the form a block's epsilon_split takes."""
-    c = {n: ledger[n].contribution for n in D.SECRECY_TERMS}
+    c = {n: ledger[n].contribution for n in SECRECY_TERMS}
     tot = math.fsum(c.values())
     return {n: v / tot for n, v in c.items()}
 
@@ -536,7 +540,7 @@ def _split_shares(ledger) -> dict:
 def _result(problem, theta, fval) -> DesignResult:
     sc = problem.scenario
     block, counts, qx, N = _expected_block(problem, theta)
-    kl = D.key_length(block, problem.statistics, check_worse_data=False)
+    kl = key_length(block, problem.statistics, check_worse_data=False)
     rate = kl.secret_key_length / N
     f = sc.model.source.repetition_rate_hz
     params = {"intensities": list(block.intensities), "intensity_probabilities": list(block.intensity_probabilities),
@@ -550,7 +554,7 @@ def _result(problem, theta, fval) -> DesignResult:
         expected["key_detections_target"] = sc.key_detections
         notes = (key_detections_note(N, sc.key_detections, expected["expected_key_detections"]),)
         fval = float(problem.key_length_float(theta[:, None])[0])   # the optimiser's value is per pulse
-    return DesignResult(protocol=D.PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
+    return DesignResult(protocol=PROTOCOL_NAME, parameters=params, expected=kl, secret_key_rate_per_signal=rate,
                         secret_key_rate_bps=None if f is None else rate * f, expected_counts=expected,
                         block_fill_time_s=sc.model.block_fill_time_s(N), scenario=sc.as_dict(),
                         diagnostics={"float_objective_bits": float(fval)}, status=_design_status(sc, kl), notes=notes)
@@ -610,10 +614,10 @@ def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str =
         raise InputError("design", "no key", "a design with a key (an acceptance test needs expected counts)")
     sigmas = float(Domain(0.0, 100.0, lower_open=True).check_scalar("sigmas", sigmas))
     leak_margin = float(Domain(0.0, 10.0).check_scalar("leak_margin", leak_margin))
-    if statistics not in D.ACCEPTANCE_STATISTICS:
-        raise InputError("statistics", statistics, "one of: " + ", ".join(D.ACCEPTANCE_STATISTICS))
+    if statistics not in ACCEPTANCE_STATISTICS:
+        raise InputError("statistics", statistics, "one of: " + ", ".join(ACCEPTANCE_STATISTICS))
     c = result.expected_counts
-    sc = D.parse_scenario(result.scenario)
+    sc = parse_scenario(result.scenario)
     mu = result.parameters["intensities"]
     acc = {"statistics": statistics,
            "ec_leak_bits": int(math.ceil(c["ec_leak_bits"] * (1 + leak_margin))),
@@ -621,14 +625,14 @@ def acceptance_test(result: DesignResult, sigmas: float = 6.0, statistics: str =
                                c["key_basis.errors"] if len(mu) == 2 else None, sigmas)}
     rnd = lambda xs: [int(round(x)) for x in xs]  # noqa: E731
     kd, td = rnd(c["key_basis.detections"]), rnd(c["test_basis.detections"])
-    data = {"protocol": D.PROTOCOL_NAME, "intensities": mu,
+    data = {"protocol": PROTOCOL_NAME, "intensities": mu,
             "intensity_probabilities": result.parameters["intensity_probabilities"],
             "key_basis": {"detections": kd, "errors": [min(e, d) for e, d in zip(rnd(c["key_basis.errors"]), kd)]},
             "test_basis": {"detections": td,
                            "errors": [min(e, d) for e, d in zip(rnd(c["test_basis.errors"]), td)]},
             "ec_leak_bits": int(c["ec_leak_bits"]), "eps_sec": sc.eps_sec, "eps_cor": sc.eps_cor,
             "epsilon_split": result.parameters["epsilon_split"], "acceptance": acc}
-    return acc, D.key_length(D.parse_block(data))
+    return acc, key_length(parse_block(data))
 
 
 def key_detections_note(pulses: float, target: float | None, expected: float) -> str:
@@ -641,12 +645,12 @@ def key_detections_note(pulses: float, target: float | None, expected: float) ->
             "pulses; the detections of an actual block vary around them.")
 
 
-def _design_status(sc: D.DecoyScenario, kl) -> Status:
+def _design_status(sc: DecoyScenario, kl) -> Status:
     """Key; or no key beyond the threshold (zero asymptotic rate with infinitely many decoys and no sifting loss,
     at the expected counts of this device model), or no positive design found within the search box."""
     if kl.secret_key_length > 0:
         return KEY
-    asym, _ = D.optimal_gllp_rate(sc.model, sc.ec_efficiency, sifting=1.0)
+    asym, _ = optimal_gllp_rate(sc.model, sc.ec_efficiency, sifting=1.0)
     reason = NoKeyReason.THRESHOLD_EXCEEDED if asym <= 0 else NoKeyReason.NO_POSITIVE_DESIGN
     return design_no_key(kl.status, reason)
 
@@ -655,7 +659,7 @@ def _at_distance(scenario, L):
     return replace(scenario, model=scenario.model.at_distance(L))
 
 
-def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tolerance_km: float = 0.1,
+def reach(scenario: DecoyScenario, statistics: str = DEFAULT_STATISTICS, tolerance_km: float = 0.1,
           max_km: float = 1000.0) -> ReachResult:
     """Largest distance with a positive certified key (bisection on distance of the optimised key).
 
@@ -715,7 +719,7 @@ def reach(scenario: D.DecoyScenario, statistics: str = D.DEFAULT_STATISTICS, tol
     return ReachResult(lo, statistics, tolerance_km, max_km, KEY, at_reach=best)
 
 
-def block_unit(unit, scenario: D.DecoyScenario) -> str:
+def block_unit(unit, scenario: DecoyScenario) -> str:
     """The unit of a block size: ``unit`` (``"pulses"`` or ``"key_detections"``; ``"key-detections"`` is taken
     as the latter), or the unit the scenario gives its block in when None.
 
@@ -727,12 +731,12 @@ def block_unit(unit, scenario: D.DecoyScenario) -> str:
     if unit is None:
         return scenario.size_kind
     name = unit.replace("-", "_") if isinstance(unit, str) else unit
-    if name not in D.BLOCK_UNITS:
+    if name not in BLOCK_UNITS:
         raise InputError("unit", unit, "pulses or key-detections (default: the unit of the scenario's [block])")
     return name
 
 
-def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = D.DEFAULT_STATISTICS,
+def blocksize(scenario: DecoyScenario, target: BlockTarget, statistics: str = DEFAULT_STATISTICS,
               max_pulses: float = MAX_PULSES, unit: str | None = None) -> BlockSizeResult:
     """Smallest number of pulses whose optimised design reaches ``target`` (bisection on log N).
 
@@ -741,7 +745,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     the answer is given: ``"pulses"``, that ``N``; ``"key_detections"``, the expected key-basis detections of
     the design at that ``N`` (rounded up), i.e. the frame size of the smallest block reaching the target.  The
     resolution is given in the same unit.  ``fraction=F`` is a fraction of the infinite-decoy asymptotic rate
-    with no sifting loss (:func:`finitekey.protocols.decoy_bb84.optimal_gllp_rate` with ``sifting=1``).
+    with no sifting loss (:func:`finitekey.protocols.decoy_bb84.scenario.optimal_gllp_rate` with ``sifting=1``).
 
     Parameters
     ----------
@@ -759,7 +763,7 @@ def blocksize(scenario: D.DecoyScenario, target: BlockTarget, statistics: str = 
     """
     unit = block_unit(unit, scenario)
     if target.kind is BlockTargetKind.RATE_FRACTION:
-        asym, _ = D.optimal_gllp_rate(scenario.model, scenario.ec_efficiency, sifting=1.0)
+        asym, _ = optimal_gllp_rate(scenario.model, scenario.ec_efficiency, sifting=1.0)
         if asym <= 0:
             raise InputError("target", str(target), "a link with a positive asymptotic rate")
 
