@@ -169,3 +169,51 @@ def test_solver_input_errors():
     bad = dataclasses.replace(prob, constraints=(model.Constraint(prob.constraints[0].operator, 0.9, 0.9, "p(0,0)"),))
     with pytest.raises(InputError, match="feasible"):
         solve(bad)
+
+
+@pytest.mark.parametrize("backend", BACKENDS)
+def test_noiseless_bb84_pure_optimum(backend):
+    # Q = 0: the only feasible state is the Bell state; H(Z|E) = 1 per kept round (Shor-Preskill 2000 at Q = 0).
+    # The optimum is a pure state (gradient singular there): the certificate tries other linearisation points.
+    prob, p_kept = bb84_depolarising(0.0)
+    r = solve(prob, backend=backend)
+    assert r.certified_lower <= r.primal
+    assert 1 - 1e-6 < r.certified_lower / p_kept <= 1
+
+
+def _unreduced_bb84(q):
+    # Four BB84 states without reducing Alice's system: rho_A (4x4) has rank 2, no strictly feasible state.
+    s = 1 / math.sqrt(2)
+    states = [[1, 0], [0, 1], [s, s], [s, -s]]
+    sr = model.source_replacement(states, [0.25] * 4, reduce=False)
+    psi = sum(0.5 * np.kron(np.eye(4)[x], st) for x, st in enumerate(states))
+    pure = np.outer(psi, psi)
+    rho_a = np.trace(pure.reshape(4, 2, 4, 2), axis1=1, axis2=3)
+    rho = (1 - 2 * q) * pure + 2 * q * np.kron(rho_a, np.eye(2) / 2)       # depolarising channel on Bob's side
+    povm_b = (np.diag([.5, 0]), np.diag([0, .5]), np.full((2, 2), .25), np.array([[.25, -.25], [-.25, .25]]))
+    stats = model.expected_statistics((sr.povm_a, povm_b), rho)
+    prob = model.KeyRateProblem(4, 2, sr.rho_a, sr.povm_a, povm_b, (model.Announcement((0, 1), (0, 1)),),
+                                (0, 1, -1, -1), model.statistics_constraints(sr.povm_a, povm_b, stats))
+    return prob, float(stats[:2, :2].sum())
+
+
+def test_rank_deficient_marginal_stays_sound_and_says_so():
+    # Without the reduction of A the primal point violates the fixed marginal where it matters (the solver's
+    # f falls below the certificate): the status says "inaccurate", the bound stays below Shor-Preskill's
+    # 1 - h(Q) (soundness) and within 1e-5 of it; the reduced problem is "optimal".
+    prob, p_kept = _unreduced_bb84(0.05)
+    r = solve(prob)
+    assert r.details["rho_a_rank_deficient"] and r.status == "inaccurate"
+    assert r.certified_lower <= r.primal
+    assert 1 - h2(0.05) - 1e-5 < r.certified_lower / p_kept <= 1 - h2(0.05)
+    reduced, p_kept = bb84_depolarising(0.05)
+    assert solve(reduced).status == "optimal"
+
+
+@pytest.mark.skipif(not HAS_QICS, reason="qics not installed (optional extra finitekey[numerical])")
+def test_qics_infeasible_statistics_are_an_input_error():
+    import dataclasses
+    prob, _ = bb84_depolarising(0.05)
+    bad = dataclasses.replace(prob, constraints=(model.Constraint(prob.constraints[0].operator, 0.9, 0.9, "p(0,0)"),))
+    with pytest.raises(InputError, match="feasible"):
+        solve(bad, backend="qics")
