@@ -83,6 +83,7 @@ _BB84 = {"protocol": "bb84", "key_bits": 10**6, "test_bits": 5 * 10**4, "test_er
          "ec_leak_bits": 190000, "eps_sec": 1e-10, "eps_cor": 1e-15}
 
 _TF = json.loads((ROOT / "examples" / "blocks" / "tf_sns_block.json").read_text())
+_DESCRIBED = json.loads((ROOT / "examples" / "blocks" / "described_block.json").read_text())
 
 SAMPLES = {
     "bb84": [(_BB84, "exact"), (_BB84, "serfling"),
@@ -103,6 +104,9 @@ SAMPLES = {
     "tf-sns": [(_TF, "exact"), (_TF, "chernoff"),
                ({**_TF, "epsilon_split": {"count_estimation": 0.4, "single_photon_smoothing": 0.3,
                                           "chain_rule": 0.2, "privacy_amplification": 0.1}}, "exact")],
+    "described": [(_DESCRIBED, "exact"),
+                  ({**_DESCRIBED, "epsilon_split": {"statistics_intervals": 0.6, "smoothing": 0.2,
+                                                   "privacy_amplification": 0.2}}, "exact")],
 }
 
 
@@ -111,6 +115,9 @@ def _context(name: str, block, statistics: str) -> tuple:
     if name == "decoy-bb84":
         analysis = D.analysis_kind(block.intensities)
         return analysis, {"N_c": D.count_events(len(block.intensities), analysis, statistics)}
+    if name == "described":
+        from finitekey.protocols.described.analysis import interval_count
+        return "all", {"K": interval_count(block.description)}
     return "all", {}
 
 

@@ -129,13 +129,15 @@ class PointTask:
 #: that offers ``evaluate(scenario, statistics=None)`` is used directly instead.  bb84: every choice is fixed
 #: (basis bias from design.p_x, epsilon split from design.smoothing_share).  decoy-bb84: intensities, their
 #: probabilities and the basis bias are fixed; the epsilon split is still chosen by the protocol's design,
-#: since its scenario has no field for it.
+#: since its scenario has no field for it.  described: the key-setting probability and the test fraction are fixed
+#: (its design has no other free parameter).
 FIXED_PARAMETER_FIELDS = {
     "bb84": (("design.p_x",), (("design.optimise_split", False),)),
     "decoy-bb84": (("protocol.intensities", "protocol.intensity_probabilities", "protocol.key_basis_probability"),
                    ()),
     "tf-sns": (("protocol.signal_intensity", "protocol.sending_probability", "protocol.decoy_intensities",
                 "protocol.decoy_probabilities", "protocol.key_window_probability"), ()),
+    "described": (("design.key_probability", "design.test_fraction"), ()),
 }
 
 

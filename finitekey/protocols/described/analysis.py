@@ -46,7 +46,7 @@ from .description import Description, picture, problem
 
 __all__ = ["term_specs", "block_ledger", "interval_count", "intervals", "key_length", "key_length_batch",
            "leakage_rate", "aep_penalty", "aep_min_rounds", "verification_tag_bits", "ASSUMPTIONS", "REFERENCES",
-           "FORMULA_LATEX", "solve_problem", "length_from"]
+           "FORMULA_LATEX", "solve_problem", "length_from", "NoFeasibleState"]
 
 
 def term_specs(intervals_count: int) -> tuple:
@@ -171,11 +171,27 @@ FORMULA_LATEX = (r"\ell = \left\lfloor n\beta - 4\sqrt{n}\log_2(2+\sqrt{d_K+1})\
                  r"\right\rfloor,\quad \beta \le \min_{\rho:\,p(\rho)\in I} H(K|E)_\rho")
 
 
+class NoFeasibleState(ComputationError):
+    """The statistics (with their intervals) fit no state with Alice's fixed marginal."""
+
+
 def solve_problem(desc: Description, lower: np.ndarray, upper: np.ndarray):
-    """Solve the key-rate problem with the given intervals; returns the solver's result (bits per round)."""
+    """Solve the key-rate problem with the given intervals; returns the solver's result (bits per round).
+
+    Raises
+    ------
+    NoFeasibleState
+        When the solver finds the constraints infeasible (the statistics contradict the description).
+    """
+    from ...errors import InputError
     from ...numerical.solver import solve   # cvxpy/qics behind it: imported on use (seconds of import time)
     pic = picture(desc)
-    return solve(problem(desc, pic, lower, upper))
+    try:
+        return solve(problem(desc, pic, lower, upper))
+    except InputError as exc:
+        if exc.field == "constraints":
+            raise NoFeasibleState(str(exc)) from None
+        raise
 
 
 def length_from(n: int, beta: float, leak: int, tag: int, eps_smooth: float, eps_pa: float, key_size: int,
@@ -235,7 +251,7 @@ def key_length(block: DescribedBlock, statistics=None, *, prec: int = 128) -> Ke
     settings = {"attacks": block.attacks, "finite_size": "collective-attack AEP (George, Lin, Lütkenhaus 2021)"}
     try:
         res = solve_problem(desc, lo, hi)
-    except ComputationError as exc:
+    except NoFeasibleState as exc:
         led_terms = {"ec_leakage": float(leak), "verification_tag": float(tag)}
         return KeyLengthResult(PROTOCOL_NAME, 0, ledger, "exact", assumptions, led_terms, estimates, FORMULA_LATEX,
                                REFERENCES, Status.no_key(NoKeyReason.INCONSISTENT_BLOCK,
