@@ -2,9 +2,9 @@
 
 Sources beside each check: the Born rule and the definitions of density matrices and POVMs (M. A. Nielsen and
 I. L. Chuang, Quantum Computation and Quantum Information (2000), sections 2.2.6 and 2.4); Shor and Preskill,
-Phys. Rev. Lett. 85, 441 (2000) (BB84: 1 - 2h(Q)); H.-K. Lo, Quantum Inf. Comput. 1, 81 (2001) (six-state one-way
-threshold about 12.6%, from memory); the closed-form BB84 analysis of finitekey.protocols.bb84 (Tomamichel et al.
-2012, coherent attacks); mpmath at 50 digits for the certified rounding.
+Phys. Rev. Lett. 85, 441 (2000) (BB84: 1 - 2h(Q)); H.-K. Lo, Quantum Inf. Comput. 1, 81 (2001) and G. Kato,
+K. Tamaki, arXiv:1008.4663 (six-state one-way rate and its 12.62% threshold); the closed-form BB84 analysis of
+finitekey.protocols.bb84 (Tomamichel et al. 2012, coherent attacks); mpmath at 50 digits for the rounding.
 """
 
 from __future__ import annotations
@@ -168,14 +168,19 @@ def test_three_state_protocol_has_the_bb84_rate_and_threshold():
         assert math.copysign(1, r) == sign
 
 
-def test_six_state_one_way_threshold_near_12_6_percent():
-    # H.-K. Lo, Quantum Inf. Comput. 1, 81 (2001): one-way six-state threshold about 12.6% (from memory).
+def test_six_state_one_way_rate_and_threshold():
+    # Six-state one-way rate 1 - H(1 - 3Q/2, Q/2, Q/2, Q/2) with f = 1 (the standard form; H.-K. Lo, Quantum Inf.
+    # Comput. 1, 81 (2001), from memory); its root 12.62% is the qubit threshold stated in the abstract of
+    # G. Kato and K. Tamaki, arXiv:1008.4663 (read by the project's paper reader; Lo's abstract says 12.7%).
+    def H(ps):
+        return -sum(p * math.log2(p) for p in ps if p > 0)
+
     kp = 0.5
-    rates = {}
-    for q in (0.12, 0.13):
+    for q in (0.05, 0.1255, 0.127):
         sc = _with("six_state", **{"statistics.depolarising": 2 * q, "reconciliation.efficiency": 1.0})
-        rates[q] = asymptotic_rate(sc, kp)
-    assert rates[0.12] > 0 > rates[0.13]
+        r = asymptotic_rate(sc, kp)
+        assert r == pytest.approx(kp * kp * (1 - H([1 - 1.5 * q, q / 2, q / 2, q / 2])), abs=1e-4)
+        assert (r > 0) == (q < 0.1262)
 
 
 def test_detector_mismatch_costs_key_and_more_with_more_mismatch():

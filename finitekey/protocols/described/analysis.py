@@ -246,8 +246,7 @@ def key_length(block: DescribedBlock, statistics=None, *, prec: int = 128) -> Ke
         leak = int(math.ceil(block.ec_efficiency * n * rate * (1 + 1e-12)))
         assumptions = assumptions + (MODELLED_LEAKAGE,)
     lo, hi = intervals(block.counts, eps_pe)
-    estimates = {"test_rounds": m, "key_rounds": n, "intervals": K, "interval_failure_probability": eps_pe,
-                 "smoothing": eps_bar}
+    estimates = {"test_rounds": m, "key_rounds": n, "intervals": K, "interval_failure_probability": eps_pe}
     settings = {"attacks": block.attacks, "finite_size": "collective-attack AEP (George, Lin, Lütkenhaus 2021)"}
     try:
         res = solve_problem(desc, lo, hi)
