@@ -142,6 +142,7 @@ class Description:
         return replace(self, alice=a, bob=b)
 
     def signal_count(self) -> int:
+        """Number of Alice's signals (states over all her settings)."""
         return sum(len(s.elements) for s in self.alice)
 
     def to_dict(self) -> dict:
