@@ -99,6 +99,29 @@ def test_bad_block_counts_are_one_line_exit_2(tmp_path, capsys):
         protocols.get("described").parse_block(bad)
     with pytest.raises(InputError, match="rounds"):
         protocols.get("described").parse_block({**data, "rounds": 1000})
+    with pytest.raises(InputError) as exc:
+        protocols.get("described").parse_block({**data, "alice_probabilities": [0.9, 0.2]})
+    assert exc.value.field == "alice_probabilities"
+    with pytest.raises(InputError) as exc:
+        protocols.get("described").parse_block({**data, "description": str(ROOT / "no_such_file.toml")})
+    assert exc.value.field.startswith("description") or "no_such_file" in str(exc.value)
+
+
+def test_modelled_leakage_is_flagged_and_never_below_the_entropy_of_the_test_data():
+    # leak = ceil(f n H(K|B)) with H(K|B) from the test frequencies of the key pair (binary entropy of the ZZ
+    # error rate, Shannon 1948), and the result says the leakage is modelled.
+    data = json.loads(BLOCK.read_text())
+    del data["ec_leak_bits"]
+    data["ec_efficiency"] = 1.2
+    proto = protocols.get("described")
+    blk = proto.parse_block(data)
+    res = proto.key_length(blk)
+    zz = data["test_counts"][0]["counts"]
+    tot = sum(map(sum, zz))
+    per_round = 0.81 * h((zz[0][1] + zz[1][0]) / tot)     # P(ZZ) = 0.9^2 in this block
+    assert res.terms["ec_leakage"] >= 1.2 * blk.key_rounds * per_round * (1 - 1e-9)
+    assert res.terms["ec_leakage"] <= 1.2 * blk.key_rounds * per_round * (1 + 1e-6) + 1
+    assert any("MODELLED" in a for a in res.assumptions)
 
 
 # ------------------------------------------------------------------------------------------------------------
