@@ -217,3 +217,25 @@ def test_qics_infeasible_statistics_are_an_input_error():
     bad = dataclasses.replace(prob, constraints=(model.Constraint(prob.constraints[0].operator, 0.9, 0.9, "p(0,0)"),))
     with pytest.raises(InputError, match="feasible"):
         solve(bad, backend="qics")
+
+
+def test_exact_factors_reproduce_omega_and_fallback_is_flagged():
+    # The certificate factors Omega exactly (L D L^dagger in rationals): the ball product F^dagger F contains
+    # Omega.  POVM elements that are PSD only within the tolerance (eigenvalue -1e-13) make Omega not exactly
+    # PSD: the float factor and its Fannes charge are used, and the result says so.
+    import dataclasses
+    from finitekey.numerical.certificate import _acb_mat, _dag, _exact_factor
+    prob, p_kept = bb84_four_dim_bob(0.03)
+    (blk,) = model.key_map_blocks(prob)
+    f = _exact_factor(prob, blk.alice_sets[0] + blk.alice_sets[1], blk.bob)
+    assert f.nrows() == 4
+    assert (_dag(f) * f).contains(_acb_mat(blk.omega))
+    assert solve(prob).details["exact_factors"]
+    base, _ = bb84_depolarising(0.05)
+    base = dataclasses.replace(base, announcements=(model.Announcement((0, 1), (0,)),))   # keep Bob's Z0 only
+    tweak = np.diag([0.0, 1e-13])
+    bent = dataclasses.replace(base, povm_b=(base.povm_b[0] - tweak, base.povm_b[1] + tweak) + base.povm_b[2:])
+    r, r0 = solve(bent), solve(base)
+    assert r0.details["exact_factors"]
+    assert not r.details["exact_factors"] and r.details["factor_error"] > 0
+    assert r.certified_lower <= r.primal and abs(r.certified_lower - r0.certified_lower) < 1e-6

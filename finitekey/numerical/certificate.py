@@ -18,9 +18,13 @@ leaves open is accounted for here:
    ``R = Q^dagger S Q - D`` and ``N = Q^dagger Q - 1`` are enclosed in balls; Weyl's inequality gives
    ``lambda_min(Q^dagger S Q) >= min D - ||R||_F`` and Ostrowski's theorem ``lambda_min(S) = lambda_min(Q^dagger S Q)
    / theta`` with ``theta in [1 - ||N||_F, 1 + ||N||_F]``.
-3. The factors satisfy ``F^dagger F = Omega`` only up to rounding: ``T = ||F^dagger F - Omega||_F`` is enclosed (with
-   ``Omega`` recomputed in balls from the POVMs) and each entropy term is charged ``2 (T log d + eta(T)) + T``
-   (Fannes' eigenvalue argument, ``eta(t) = -t log t``, valid for ``T <= 1/e``).
+3. The factors.  ``Omega = (sum M_x) (x) (sum N_y)`` is exact in rationals (floats are dyadic rationals); an exact
+   ``L D L^dagger`` decomposition (Gaussian rationals, no pivoting: a zero pivot of a PSD matrix has a zero
+   column) gives ``F = D^(1/2) L^dagger`` with ``F^dagger F = Omega`` exactly, enclosed in balls (only the square
+   roots round).  So the convexity argument applies to the true ``f``.  If ``Omega`` is not exactly PSD (POVM
+   elements are accepted within a tolerance), the float factor is used instead, ``T = ||F^dagger F - Omega||_F`` is
+   enclosed and each entropy term is charged ``2 (T log d + eta(T)) + T`` (Fannes' eigenvalue argument,
+   ``eta(t) = -t log t``, valid for ``T <= 1/e``); ``Certificate.exact_factors`` is then False.
 """
 
 from __future__ import annotations
@@ -110,7 +114,10 @@ class Certificate:
     gradient_error : float
         Upper bound charged for the float logarithms (nats).
     factor_error : float
-        Upper bound charged for the rounding of the Kraus factors (nats).
+        Upper bound charged for the rounding of the Kraus factors (nats); 0 with exact factors.
+    exact_factors : bool
+        Whether every factor was computed exactly (``F^dagger F = Omega`` in exact arithmetic, ``F`` enclosed in
+        balls); otherwise the float factors and the Fannes charge of item 3 were used.
     """
 
     bound_bits: float
@@ -118,6 +125,7 @@ class Certificate:
     lambda_min: float
     gradient_error: float
     factor_error: float
+    exact_factors: bool = True
 
 
 def _log_error(x_ball: acb_mat, h: np.ndarray) -> arb:
@@ -166,11 +174,22 @@ def certify(problem, blocks, rho: np.ndarray, y, constraints, *, prec: int = 106
         grad_err = arb(0)
         factor_err = arb(0)
         d = rho.shape[0]
+        exact = True
         for blk in blocks:
             every = tuple(x for xs in blk.alice_sets for x in xs)
             terms = [(1, blk.g, every)] + [(-1, z, xs) for z, xs in zip(blk.z, blk.alice_sets)]
             for sign, f, alice in terms:
-                fb = _acb_mat(f)
+                fb = _exact_factor(problem, alice, blk.bob)
+                if fb is None:              # Omega not exactly PSD (inputs PSD only within tolerance)
+                    exact = False
+                    fb = _acb_mat(f)
+                    t = _frob_upper(_dag(fb) * fb - _omega_ball(problem, alice, blk.bob))
+                    if not t < arb(1) / 3:
+                        factor_err = arb(math.inf)
+                    elif t > 0:
+                        factor_err += (2 * (t * arb(d).log() - t * t.log()) + t).upper()
+                else:
+                    f = _mid(fb)
                 x = fb * rho_b * _dag(fb)
                 h = _logm_h(f @ rho @ f.conj().T)
                 h = (h + h.conj().T) / 2
@@ -178,11 +197,6 @@ def certify(problem, blocks, rho: np.ndarray, y, constraints, *, prec: int = 106
                 grad_ball = grad_ball + term if sign > 0 else grad_ball - term
                 grad_mid += sign * (f.conj().T @ h @ f)
                 grad_err += (_frob_upper(fb) ** 2 * _log_error(x, h)).upper()
-                t = _frob_upper(_dag(fb) * fb - _omega_ball(problem, alice, blk.bob))
-                if not t < arb(1) / 3:
-                    factor_err = arb(math.inf)
-                elif t > 0:
-                    factor_err += (2 * (t * arb(d).log() - t * t.log()) + t).upper()
         s_ball = grad_ball
         s_mid = grad_mid.copy()
         const = arb(0)
@@ -201,7 +215,88 @@ def certify(problem, blocks, rho: np.ndarray, y, constraints, *, prec: int = 106
     return Certificate(bound_bits=bound, float_bound_bits=(const_f + lam_f) / LN2,
                        lambda_min=_lower_float(lam) if lam.is_finite() else -math.inf,
                        gradient_error=_upper_float(grad_err) if grad_err.is_finite() else math.inf,
-                       factor_error=_upper_float(factor_err) if factor_err.is_finite() else math.inf)
+                       factor_error=_upper_float(factor_err) if factor_err.is_finite() else math.inf,
+                       exact_factors=exact)
+
+
+def _mid(m: acb_mat) -> np.ndarray:
+    """Float midpoints of a ball matrix."""
+    return np.array([[complex(float(e.real.mid()), float(e.imag.mid())) for e in row] for row in m.tolist()])
+
+
+def _gauss_matrix(m: np.ndarray):
+    """Exact (real part, imaginary part) Fraction matrices of a float matrix."""
+    from fractions import Fraction
+
+    m = np.asarray(m, dtype=complex)
+    return ([[Fraction(float(v.real)) for v in row] for row in m], [[Fraction(float(v.imag)) for v in row] for row in m])
+
+
+def _exact_omega(problem, alice, bob):
+    """``(sum_{x in alice} M_x) (x) (sum_{y in bob} N_y)`` in exact Gaussian rationals (re, im)."""
+    def total(mats):
+        re, im = _gauss_matrix(mats[0])
+        for m in mats[1:]:
+            r2, i2 = _gauss_matrix(m)
+            re = [[a + b for a, b in zip(r, s)] for r, s in zip(re, r2)]
+            im = [[a + b for a, b in zip(r, s)] for r, s in zip(im, i2)]
+        return re, im
+
+    ar, ai = total([problem.povm_a[x] for x in alice])
+    br, bi = total([problem.povm_b[y] for y in bob])
+    na, nb = len(ar), len(br)
+    n = na * nb
+    re = [[None] * n for _ in range(n)]
+    im = [[None] * n for _ in range(n)]
+    for i in range(n):
+        for j in range(n):
+            a_r, a_i = ar[i // nb][j // nb], ai[i // nb][j // nb]
+            b_r, b_i = br[i % nb][j % nb], bi[i % nb][j % nb]
+            re[i][j] = a_r * b_r - a_i * b_i
+            im[i][j] = a_r * b_i + a_i * b_r
+    return re, im
+
+
+def _exact_factor(problem, alice, bob):
+    """Ball matrix ``F`` (full row rank) with ``F^dagger F = Omega`` exactly, or None if ``Omega`` is not PSD.
+
+    ``Omega = sum_j d_j l_j l_j^dagger`` by an exact ``L D L^dagger`` elimination; row ``j`` of ``F`` is
+    ``sqrt(d_j) l_j^dagger``.
+    """
+    re, im = _exact_omega(problem, alice, bob)
+    n = len(re)
+    rows = []
+    for j in range(n):
+        d = re[j][j]
+        if im[j][j] != 0:
+            return None
+        if d < 0:
+            return None
+        if d == 0:
+            if any(re[i][j] != 0 or im[i][j] != 0 for i in range(j + 1, n)):
+                return None            # a zero pivot with a non-zero column: not PSD
+            continue
+        lr = [re[i][j] / d if i >= j else 0 for i in range(n)]
+        li = [im[i][j] / d if i >= j else 0 for i in range(n)]
+        for i in range(j + 1, n):
+            if re[i][j] == 0 and im[i][j] == 0:
+                continue
+            for k in range(j + 1, n):
+                # A[i][k] -= A[i][j] conj(A[k][j]) / d
+                pr, pi = re[i][j], im[i][j]
+                qr, qi = re[k][j], -im[k][j]
+                re[i][k] -= (pr * qr - pi * qi) / d
+                im[i][k] -= (pr * qi + pi * qr) / d
+        rows.append((d, lr, li))
+    if not rows:
+        return None
+    out = []
+    for d, lr, li in rows:
+        sq = arb(d.numerator).sqrt() / arb(d.denominator).sqrt()
+        # row = sqrt(d) * conj(l)^T
+        out.append([sq * acb(arb(a.numerator) / arb(a.denominator), -(arb(b.numerator) / arb(b.denominator)))
+                    for a, b in zip(lr, li)])
+    return acb_mat(out)
 
 
 def _omega_ball(problem, alice, bob) -> acb_mat:

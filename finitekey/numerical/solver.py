@@ -338,7 +338,8 @@ def solve(problem: KeyRateProblem, *, backend: str = "cvxpy", tol: float = 1e-6,
     if not math.isfinite(lower):
         lower = -math.inf
     details.update(float_bound_bits=cert.float_bound_bits, lambda_min=cert.lambda_min,
-                   gradient_error=cert.gradient_error, factor_error=cert.factor_error)
+                   gradient_error=cert.gradient_error, factor_error=cert.factor_error,
+                   exact_factors=cert.exact_factors)
     gap = primal - lower
     # "optimal": the certified gap is within tol and the primal point is not visibly below the bound (a point
     # below it violates the constraints in a way that matters, typically with no strictly feasible state:
