@@ -124,8 +124,9 @@ def test_two_intensity_closed_forms_and_lp():
 @pytest.mark.parametrize("senders", [(A3, A3), (A3, B3)])
 @pytest.mark.parametrize("rel", [1e-6, 1e-3])
 def test_two_sender_lp_at_least_as_tight_as_the_closed_form(senders, rel):
-    # closed form: vacuum + two decoys per sender (derived in proofs_notes/decoy/closed_forms.md; the
-    # symmetric case is the form of Xu, Curty, Qi, Lo, NJP 15, 113007 (2013), from memory)
+    # closed form: vacuum + two decoys per sender (derived in proofs_notes/decoy/closed_forms.md; same
+    # construction as Xu, Curty, Qi, Qian, Lo, NJP 15, 113007 (2013), not checked against its text); truth
+    # from direct Poisson sums of an independent yield model
     E, truth = _expected(list(senders), _mdi_yield(), 1e12, n_cut=25)
     lo, hi = _widen(E, rel)
     assert D.closed_form_name(senders, (1, 1), "lower") == "two-sender-vacuum-two-decoy"

@@ -17,8 +17,10 @@ References
 ----------
 .. [1] C. C. W. Lim, M. Curty, N. Walenta, F. Xu, H. Zbinden, Phys. Rev. A 89, 022307 (2014).
 .. [2] D. Rusca, A. Boaron, F. Grünenfelder, A. Martin, H. Zbinden, Appl. Phys. Lett. 112, 171104 (2018).
-.. [3] F. Xu, M. Curty, B. Qi, H.-K. Lo, New J. Phys. 15, 113007 (2013); M. Curty, F. Xu, W. Cui,
-   C. C. W. Lim, K. Tamaki, H.-K. Lo, Nat. Commun. 5, 3732 (2014) (two decoys and a vacuum per sender).
+.. [3] F. Xu, M. Curty, B. Qi, L. Qian, H.-K. Lo, New J. Phys. 15, 113007 (2013) and M. Curty, F. Xu, W. Cui,
+   C. C. W. Lim, K. Tamaki, H.-K. Lo, Nat. Commun. 5, 3732 (2014): the same construction (vacuum and two
+   decoys per sender); the two-sender forms here are derived in the proof note, not checked against those
+   texts (only their abstracts could be read).
 """
 
 from __future__ import annotations

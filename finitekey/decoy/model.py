@@ -6,7 +6,7 @@ probabilities.  With ``S`` senders (one for BB84, two for MDI or twin-field set-
 Settings are ordered as ``itertools.product`` of the senders' index ranges (the first sender slowest).
 
 Everything here validates and converts; the mathematics is in :mod:`.tagging`, :mod:`.lp` and
-:mod:`.closed_forms` (proof note ``proofs_notes/decoy/model.md``).
+:mod:`.closed_forms` (proof note ``proofs_notes/decoy/tagging.md``).
 """
 
 from __future__ import annotations
