@@ -149,12 +149,13 @@ def test_statistics_must_match_the_acceptance_test():
 def test_chernoff_interval_ends_increase_with_the_count():
     """The box argument needs the chernoff limits monotone in the observed count (checked on a grid with
     the certified routine; the limits are Neyman confidence limits of a monotone tail)."""
-    from finitekey.protocols import _decoy_analysis as A
+    from finitekey.decoy import intervals as IV
+    from finitekey.decoy import rounding as R
     prev_lo = prev_hi = -1.0
     for c in [0, 1, 2, 5, 10, 50, 100, 1000, 10**4, 10**6, 10**8]:
-        lo, hi = A.count_interval_certified("chernoff", c, 0, 1e-12)
-        assert A.floor_arb(lo) >= prev_lo and A.ceil_arb(hi) >= prev_hi
-        prev_lo, prev_hi = A.floor_arb(lo), A.ceil_arb(hi)
+        lo, hi = IV.count_interval_certified("chernoff", c, 0, 1e-12)
+        assert R.floor_arb(lo) >= prev_lo and R.ceil_arb(hi) >= prev_hi
+        prev_lo, prev_hi = R.floor_arb(lo), R.ceil_arb(hi)
 
 
 def test_acceptance_test_from_a_design():

@@ -16,7 +16,7 @@ from flint import arb
 from finitekey.channel import Detector, Link, LinkModel
 from finitekey.cli import main
 from finitekey.errors import InputError
-from finitekey.protocols import _decoy_analysis as A
+from finitekey.decoy import intervals as IV
 from finitekey.protocols import decoy_bb84 as D
 
 
@@ -69,13 +69,13 @@ def test_markov_monte_carlo_intervals_and_conversions_cover(eps):
     gamma, lam = _markov_run(rng, runs, n)
     # Pre-registered expected count: stationary detection rate p_low / (1 - p_high + p_low) (exact for the chain).
     expected = n * 0.02 / (1 - 0.2 + 0.02)
-    a_lo, a_hi = A.kato_tilt(n, expected, eps, "lower"), A.kato_tilt(n, expected, eps, "upper")
+    a_lo, a_hi = IV.kato_tilt(n, expected, eps, "lower"), IV.kato_tilt(n, expected, eps, "upper")
     assert a_hi > 0 > a_lo   # tuned for a rate far below 1/2
-    hi = _per_value(lambda g: float(A.kato_count_interval_certified(int(g), n, a_lo, a_hi, eps)[1].upper()), gamma)
-    lo = _per_value(lambda g: float(A.kato_count_interval_certified(int(g), n, a_lo, a_hi, eps)[0].lower()), gamma)
+    hi = _per_value(lambda g: float(IV.kato_count_interval_certified(int(g), n, a_lo, a_hi, eps)[1].upper()), gamma)
+    lo = _per_value(lambda g: float(IV.kato_count_interval_certified(int(g), n, a_lo, a_hi, eps)[0].lower()), gamma)
     # conversions: the actual sum bounded from the (here exactly known) conditional sum
-    clo = _per_value(lambda x: float(A.kato_actual_lower(arb(float(x)), n, a_hi, eps).lower()), lam)
-    cup = _per_value(lambda x: float(A.kato_actual_upper(arb(float(x)), n, a_lo, eps).upper()), lam)
+    clo = _per_value(lambda x: float(IV.kato_actual_lower(arb(float(x)), n, a_hi, eps).lower()), lam)
+    cup = _per_value(lambda x: float(IV.kato_actual_upper(arb(float(x)), n, a_lo, eps).upper()), lam)
     # Margin: binomial(runs, eps) mean + 4 standard deviations + 1 (a true failure rate eps would pass).
     margin = runs * eps + 4 * math.sqrt(runs * eps) + 1
     fails = [np.sum(hi < lam), np.sum(lo > lam), np.sum(clo > gamma), np.sum(cup < gamma)]
@@ -90,7 +90,7 @@ def test_a_zero_is_azuma_hoeffding():
     # Azuma (1967) / Hoeffding (1963) for a martingale with increments in a range of length 1:
     # Pr[Lambda - Gamma >= t] <= exp(-2 t^2 / n), so the interval is Gamma -/+ sqrt(n ln(1/eps) / 2).
     for n, c, eps in [(10**10, 2345678, 3.7e-12), (5000, 120, 1e-3), (10**6, 500000, 1e-9)]:
-        lo, hi = A.kato_count_interval_certified(c, n, 0.0, 0.0, eps)
+        lo, hi = IV.kato_count_interval_certified(c, n, 0.0, 0.0, eps)
         with mpmath.workdps(40):
             d = mpmath.sqrt(mpmath.mpf(n) * mpmath.log(1 / mpmath.mpf(eps)) / 2)
             up, dn = mpmath.mpf(c) + d, max(mpmath.mpf(c) - d, 0)
@@ -98,9 +98,9 @@ def test_a_zero_is_azuma_hoeffding():
         assert float(lo.lower()) <= dn and float(lo.lower()) >= dn * (1 - 1e-12) - 1e-9
         # conversions with a = 0: Gamma >= Lambda - d and Gamma <= Lambda + d
         lam = arb(c)
-        assert abs(float(A.kato_actual_lower(lam, n, 0.0, eps).lower()) - float(c - d)) <= 1e-9 * (1 + float(d))
-        assert abs(float(A.kato_actual_upper(lam, n, 0.0, eps).upper()) - float(c + d)) <= 1e-9 * (1 + float(d))
-    assert A.kato_tilt(5000, None, 1e-3, "upper") == 0.0
+        assert abs(float(IV.kato_actual_lower(lam, n, 0.0, eps).lower()) - float(c - d)) <= 1e-9 * (1 + float(d))
+        assert abs(float(IV.kato_actual_upper(lam, n, 0.0, eps).upper()) - float(c + d)) <= 1e-9 * (1 + float(d))
+    assert IV.kato_tilt(5000, None, 1e-3, "upper") == 0.0
 
 
 @pytest.mark.parametrize("mu,p", [((0.5, 0.1, 2e-4), (0.7, 0.2, 0.1)), ((0.5, 0.1), (0.7, 0.3))])

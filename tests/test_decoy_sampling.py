@@ -9,7 +9,7 @@ import pytest
 from flint import arb
 
 from finitekey.bounds.hypergeometric_exact import key_errors_upper
-from finitekey.protocols import _decoy_analysis as A
+from finitekey.protocols import _phase_error as PE
 from finitekey.protocols.decoy_bb84 import analysis as DA
 
 # (key bits n, test bits k, test errors e): the few-error points found by review, where the 2014 gamma alone
@@ -43,7 +43,7 @@ def test_design_surrogate_serfling_matches_the_bound_at_integer_counts():
     from finitekey.bounds import get
     b = get("random_sampling")
     for n, k, eps in [(10**6, 10**4, 1e-11), (4234, 1908, 1e-6), (37, 5, 0.1)]:
-        assert float(A.random_sampling_deviation_float(n, k, eps)) == pytest.approx(
+        assert float(PE.random_sampling_deviation_float(n, k, eps)) == pytest.approx(
             float(b.deviation(eps, key_bits=n, test_bits=k)), rel=1e-12)
 
 
@@ -65,7 +65,7 @@ def test_single_photon_term_non_decreasing_in_key_count(k, e, eps):
     for n0 in starts:
         prev = None
         for N in range(n0, n0 + 150):
-            phi, _, _ = A.kl_key_rate_upper(N, k, k, e, eps)
+            phi, _, _ = PE.kl_key_rate_upper(N, k, k, e, eps)
             val = _single_bits(N, phi)
             if prev is not None:
                 assert val >= prev, (N, k, e, eps)
@@ -83,7 +83,7 @@ def test_exact_hypergeometric_plug_in_is_not_monotone():
 def test_population_rate_limit_certified_and_tight(k, e, eps):
     # checked against mpmath at 50 digits: k D(e/k || p_u) >= ln(1/eps), and not loose by more than 1e-9
     mpmath.mp.dps = 50
-    pu = A.sampling_population_rate_upper(k, e, eps)
+    pu = PE.sampling_population_rate_upper(k, e, eps)
     a = mpmath.mpf(e) / k
 
     def kd(p):
@@ -101,7 +101,7 @@ def test_population_rate_limit_certified_and_tight(k, e, eps):
 def test_kl_phase_bound_not_below_exact_hypergeometric(n, k, e):
     # the exact Neyman bound is the smallest valid bound of this kind; a valid bound cannot be below it
     eps = 1e-10 / 21
-    phi, _, _ = A.kl_key_rate_upper(n, k, k, e, eps)
+    phi, _, _ = PE.kl_key_rate_upper(n, k, k, e, eps)
     assert phi >= min(key_errors_upper(n, k, e, eps) / n, 0.5)
 
 
@@ -114,12 +114,12 @@ def test_plug_in_bound_covers_every_true_count_in_the_region():
         ku = k + int(rng.integers(0, 3 * k))
         e = int(rng.integers(0, k // 8))
         eps = float(10.0 ** rng.uniform(-12, -3))
-        top, _, _ = A.kl_key_rate_upper(n, k, ku, e, eps)
+        top, _, _ = PE.kl_key_rate_upper(n, k, ku, e, eps)
         for _ in range(5):
             N = n + int(rng.integers(0, 3 * n))
             K = int(rng.integers(k, ku + 1))
             E = int(rng.integers(0, e + 1))
-            true_bound, _, _ = A.kl_key_rate_upper(N, K, K, E, eps)
+            true_bound, _, _ = PE.kl_key_rate_upper(N, K, K, E, eps)
             assert min(top, 0.5) >= min(true_bound, 0.5) - 1e-15, (n, k, ku, e, N, K, E)
 
 
@@ -134,7 +134,7 @@ def test_kl_phase_bound_monte_carlo():
         trials = 4000
         test_err = rng.hypergeometric(T, N + K - T, K, size=trials)
         for x in np.unique(test_err):
-            phi, _, _ = A.kl_key_rate_upper(N, K, K, int(x), eps)
+            phi, _, _ = PE.kl_key_rate_upper(N, K, K, int(x), eps)
             if (T - x) / N > phi:
                 fails += int(np.sum(test_err == x))
         assert fails / trials <= eps + 3 * math.sqrt(eps / trials)

@@ -8,7 +8,7 @@ import pytest
 
 from finitekey.channel import Detector, Link, LinkModel
 from finitekey.protocols import decoy_bb84 as D
-from finitekey.protocols import _decoy_analysis as A
+from finitekey.decoy import closed_forms as CF
 
 
 def _model(L):
@@ -92,7 +92,7 @@ def test_two_intensity_bounds_contain_truth(method):
     assert r.secret_key_length > 0
     # the vacuum upper bound from error counts is above the truth too
     with np.errstate(all="ignore"):
-        s0u = A.two_intensity_vacuum_upper(list(mu), list(p), b.key_errors[1] + 5 * math.sqrt(b.key_errors[1]),
+        s0u = CF.two_intensity_vacuum_upper(list(mu), list(p), b.key_errors[1] + 5 * math.sqrt(b.key_errors[1]),
                                            math.sqrt(sum(b.key_detections) / 2 * math.log(1e12)), np.exp)
     assert s0u >= s0_true
 

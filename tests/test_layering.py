@@ -210,7 +210,7 @@ def test_the_walk_sees_every_module_and_its_imports():
      "imports finitekey.optimize.dispatch"),
     ("from ..report import sweep\n", "finitekey.numerical", True, "imports finitekey.report.sweep"),
     # a shared helper importing a protocol, a protocol importing another
-    ("def f():\n    from .decoy_bb84 import _intervals\n", "finitekey.protocols._decoy_lp", False,
+    ("def f():\n    from .decoy_bb84 import _intervals\n", "finitekey.protocols._phase_error", False,
      "imports the protocol package decoy_bb84"),
     ("from ..bb84.analysis import key_length\n", "finitekey.protocols.decoy_bb84.analysis", False,
      "imports the protocol package bb84"),

@@ -40,7 +40,7 @@ class Sender:
     intensities : tuple of float
         Distinct, finite, ``>= 0`` (0 is the vacuum); any order.
     probabilities : tuple of float
-        Same length, each in ``(0, 1]``, summing to at most 1 (a sender may also send other states, e.g.
+        Same length, each in ``(0, 1]``, summing to at most 1 (up to 1e-9; a sender may also send other states, e.g.
         another basis, that the decoy estimate does not use).
     """
 
@@ -63,7 +63,7 @@ class Sender:
         for q in p:
             if isinstance(q, bool) or not isinstance(q, numbers.Real) or not math.isfinite(q) or not 0 < q <= 1:
                 raise InputError("senders.probabilities", p, "real numbers in (0, 1]")
-        if math.fsum(float(q) for q in p) > 1 + 1e-12:
+        if math.fsum(float(q) for q in p) > 1 + 1e-9:
             raise InputError("senders.probabilities", p, "probabilities summing to at most 1")
 
     @property
@@ -163,8 +163,8 @@ def parse_intervals(senders, lo, hi) -> tuple:
     ----------
     senders : tuple of Sender
     lo, hi : sequence in setting order or mapping setting -> value
-        Real numbers ``0 <= lo_k <= hi_k`` (int, float, Fraction or arb; an arb ball's lower end is used
-        for ``lo`` and its upper end for ``hi`` by the bounds).
+        Real numbers ``lo_k <= hi_k``, ``hi_k >= 0`` (a negative lower end is a valid, weak bound); int,
+        float, Fraction or arb (an arb ball's lower end is used for ``lo`` and its upper end for ``hi``).
 
     Returns
     -------
@@ -176,9 +176,8 @@ def parse_intervals(senders, lo, hi) -> tuple:
     a = [_exact(f"lo[{k}]", v) for k, v in zip(keys, lo_l)]
     b = [_exact(f"hi[{k}]", v) for k, v in zip(keys, hi_l)]
     for k, x, y in zip(keys, a, b):
-        if x.upper() < 0 or y.upper() < 0:
-            raise InputError(f"lo[{k}]" if x.upper() < 0 else f"hi[{k}]", x if x.upper() < 0 else y,
-                             "an expected count >= 0")
+        if y.upper() < 0:
+            raise InputError(f"hi[{k}]", y, "an upper bound >= 0 on an expected count")
         if x.lower() > y.upper():
             raise InputError(f"lo[{k}]", x, f"at most hi[{k}] = {y}")
     return a, b

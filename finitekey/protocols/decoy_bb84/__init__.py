@@ -35,7 +35,8 @@ Statistics (``statistics=``):
 
 Analyses by intensity count: 3 intensities with ``mu1 > mu2 + mu3`` use the closed form of Lim et al.;
 2 intensities the one-decoy closed form of Rusca et al. (vacuum bounded from error counts); any other count
-(or 3 intensities violating the condition) the linear programme of :mod:`._decoy_lp`.
+(or 3 intensities violating the condition) the certified linear programme of the decoy engine
+(:func:`finitekey.decoy.bound`).
 
 See proofs_notes/protocols/decoy_bb84.md for the derivation, the epsilon accounting and the assumptions.
 

@@ -2,8 +2,9 @@
 estimates of the vacuum and single-photon counts and the certified key length of a block (:func:`key_length`,
 :func:`key_length_batch`), variable-length or fixed-length.
 
-The closed forms and count intervals are in :mod:`finitekey.protocols._decoy_analysis`, the linear programme in
-:mod:`finitekey.protocols._decoy_lp`.
+The closed forms, the count intervals and the linear programme are those of the decoy engine
+(:mod:`finitekey.decoy`: ``closed_forms``, ``intervals``, :func:`finitekey.decoy.bound`); the phase-error
+sampling bounds are in :mod:`finitekey.protocols._phase_error`.
 """
 
 from __future__ import annotations
@@ -17,8 +18,11 @@ from flint import arb, ctx
 from ...bounds import get as _get_bound
 from ...budget import Charge, Ledger, LedgerTerm, Role, TermSpec, allocate
 from ...errors import ComputationError, InputError
-from .. import _decoy_analysis as A
-from .. import _decoy_lp
+from ... import decoy
+from ...decoy import closed_forms as CF
+from ...decoy import intervals as IV
+from ...decoy import rounding as R
+from .. import _phase_error as PE
 from .._batch import map_in_chunks
 from .._result import KEY, KeyLengthResult, NoKeyReason, Status
 from .block import PROTOCOL_NAME, DecoyBlock
@@ -231,13 +235,13 @@ def _box_intervals(method: str, ranges, eps: float, prec: int):
     with ctx.workprec(prec):
         if method == "chernoff":
             for a, b in ranges:
-                lo.append(A.count_interval_certified("chernoff", a, 0, eps, prec)[0])
-                hi.append(A.count_interval_certified("chernoff", b, 0, eps, prec)[1])
+                lo.append(IV.count_interval_certified("chernoff", a, 0, eps, prec)[0])
+                hi.append(IV.count_interval_certified("chernoff", b, 0, eps, prec)[1])
         elif method == "hoeffding":
             d = (arb(sum(b for _, b in ranges)) / 2 * (1 / arb(eps)).log()).sqrt()
             for a, b in ranges:
-                lo.append(arb(A.floor_arb(arb(a) - d)))
-                hi.append(arb(A.ceil_arb(arb(b) + d)))
+                lo.append(arb(R.floor_arb(arb(a) - d)))
+                hi.append(arb(R.ceil_arb(arb(b) + d)))
         else:
             raise ValueError(method)
     return lo, hi
@@ -251,7 +255,7 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
     """
     mu = [arb(m) for m in block.intensities]
     p = [arb(x) for x in block.intensity_probabilities]
-    exp = A.arb_exp
+    exp = R.arb_exp
     ex = block.kato_expected
     def kato(basis, kind):
         return None if method != "kato" else (block.pulses, None if ex is None else ex[basis][kind])
@@ -259,7 +263,7 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
     def intervals(basis, kind):
         if box is not None:
             return _box_intervals(method, box[basis][kind], eps_c, prec)
-        return A.count_intervals_certified(method, getattr(block, f"{basis.split('_')[0]}_{kind}"), eps_c, prec,
+        return IV.count_intervals_certified(method, getattr(block, f"{basis.split('_')[0]}_{kind}"), eps_c, prec,
                                            kato(basis, kind))
 
     def detections_total(basis):   # at most this many trials in the vacuum-error deviation
@@ -273,28 +277,42 @@ def _estimates_certified(block: DecoyBlock, method: str, analysis: str, eps_c: f
         el, eh = intervals("test_basis", "errors")
         s0u = s0zu = None
         if analysis == "three-intensity":
-            s0, s1 = A.three_intensity(mu, p, kl, kh, exp)
-            s0z, s1z = A.three_intensity(mu, p, tl, th, exp)
-            v1 = A.three_intensity_errors(mu, p, el, eh, exp)
+            s0, s1 = CF.three_intensity(mu, p, kl, kh, exp)
+            s0z, s1z = CF.three_intensity(mu, p, tl, th, exp)
+            v1 = CF.three_intensity_errors(mu, p, el, eh, exp)
         elif analysis == "two-intensity":
             kel, keh = intervals("key_basis", "errors")
             vac_key = _vacuum_deviation(method, detections_total("key_basis"), eps_c)
             vac_test = _vacuum_deviation(method, detections_total("test_basis"), eps_c)
-            s0u = A.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
-            s0, s1 = A.two_intensity(mu, p, kl, kh, s0u, exp)
-            s0zu = A.two_intensity_vacuum_upper(mu, p, eh[1], vac_test, exp)
-            s0z, s1z = A.two_intensity(mu, p, tl, th, s0zu, exp)
-            v1 = A.two_intensity_errors(mu, p, el, eh, exp)
+            s0u = CF.two_intensity_vacuum_upper(mu, p, keh[1], vac_key, exp)
+            s0, s1 = CF.two_intensity(mu, p, kl, kh, s0u, exp)
+            s0zu = CF.two_intensity_vacuum_upper(mu, p, eh[1], vac_test, exp)
+            s0z, s1z = CF.two_intensity(mu, p, tl, th, s0zu, exp)
+            v1 = CF.two_intensity_errors(mu, p, el, eh, exp)
         else:
-            return _decoy_lp.estimates(block, method, eps_c)
-        out = {"s0": A.lower_end(A.clip0(s0)), "s1": A.lower_end(s1), "s1z": A.lower_end(s1z),
-               "v1": A.upper_end(v1), "s0z": A.lower_end(A.clip0(s0z))}
+            return _lp_estimates(block, method, eps_c)
+        out = {"s0": R.lower_end(R.clip0(s0)), "s1": R.lower_end(s1), "s1z": R.lower_end(s1z),
+               "v1": R.upper_end(v1), "s0z": R.lower_end(R.clip0(s0z))}
         if s0u is not None:
-            out["s0_upper"] = A.upper_end(s0u)
-            out["s0z_upper"] = A.upper_end(s0zu)
+            out["s0_upper"] = R.upper_end(s0u)
+            out["s0z_upper"] = R.upper_end(s0zu)
         if method == "kato":
             out = _kato_actual_counts(block, analysis, out, eps_c, prec)
         return out
+
+
+def _lp_estimates(block: DecoyBlock, method: str, eps_c: float, prec: int = 128) -> dict:
+    """s0, s1 (key basis, lower), s1Z (test basis, lower), v1 (test errors, upper) by the decoy engine's
+    certified linear programme, with the exact total of each table (proof note, section 5)."""
+    sender = decoy.Sender(block.intensities, block.intensity_probabilities)
+
+    def table(counts):
+        lo, hi = IV.count_intervals_certified(method, counts, eps_c, prec)
+        return lambda target, sense: decoy.bound(sender, lo, hi, (target,), sense, total=sum(counts), method="lp",
+                                                 prec=prec)
+
+    key, test, errors = table(block.key_detections), table(block.test_detections), table(block.test_errors)
+    return {"s0": key(0, "lower"), "s1": key(1, "lower"), "s1z": test(1, "lower"), "v1": errors(1, "upper")}
 
 
 def _kato_predicted(block: DecoyBlock, analysis: str) -> dict:
@@ -310,15 +328,15 @@ def _kato_predicted(block: DecoyBlock, analysis: str) -> dict:
     kd, td = list(ex["key_basis"]["detections"]), list(ex["test_basis"]["detections"])
     te, ke = list(ex["test_basis"]["errors"]), list(ex["key_basis"]["errors"])
     if analysis == "three-intensity":
-        s0, s1 = A.three_intensity(mu, p, kd, kd, np.exp)
-        _, s1z = A.three_intensity(mu, p, td, td, np.exp)
-        v1 = A.three_intensity_errors(mu, p, te, te, np.exp)
+        s0, s1 = CF.three_intensity(mu, p, kd, kd, np.exp)
+        _, s1z = CF.three_intensity(mu, p, td, td, np.exp)
+        v1 = CF.three_intensity_errors(mu, p, te, te, np.exp)
     else:
-        s0u = A.two_intensity_vacuum_upper(mu, p, ke[1], 0.0, np.exp)
-        s0, s1 = A.two_intensity(mu, p, kd, kd, s0u, np.exp)
-        s0zu = A.two_intensity_vacuum_upper(mu, p, te[1], 0.0, np.exp)
-        _, s1z = A.two_intensity(mu, p, td, td, s0zu, np.exp)
-        v1 = A.two_intensity_errors(mu, p, te, te, np.exp)
+        s0u = CF.two_intensity_vacuum_upper(mu, p, ke[1], 0.0, np.exp)
+        s0, s1 = CF.two_intensity(mu, p, kd, kd, s0u, np.exp)
+        s0zu = CF.two_intensity_vacuum_upper(mu, p, te[1], 0.0, np.exp)
+        _, s1z = CF.two_intensity(mu, p, td, td, s0zu, np.exp)
+        v1 = CF.two_intensity_errors(mu, p, te, te, np.exp)
     return {"s0": float(s0), "s1": float(s1), "s1z": float(s1z), "v1": float(v1)}
 
 
@@ -329,11 +347,11 @@ def _kato_actual_counts(block: DecoyBlock, analysis: str, est: dict, eps_c: floa
     pred = _kato_predicted(block, analysis)
     out = dict(est)
     for name in ("s0", "s1", "s1z"):
-        a = A.kato_tilt(n, pred[name], eps_c, "upper")
-        out[name] = A.kato_actual_lower(est[name], n, a, eps_c, prec)
-    out["s0"] = A.lower_end(A.clip0(out["s0"]))
-    a = A.kato_tilt(n, pred["v1"], eps_c, "lower")
-    out["v1"] = A.kato_actual_upper(est["v1"], n, a, eps_c, prec)
+        a = IV.kato_tilt(n, pred[name], eps_c, "upper")
+        out[name] = IV.kato_actual_lower(est[name], n, a, eps_c, prec)
+    out["s0"] = R.lower_end(R.clip0(out["s0"]))
+    a = IV.kato_tilt(n, pred["v1"], eps_c, "lower")
+    out["v1"] = IV.kato_actual_upper(est["v1"], n, a, eps_c, prec)
     # s0Z (and the vacuum upper bounds) stay conditional sums: the test vacuum bound is not used for the
     # actual test count (k_upper = n_Z, see _physical_check) and the vacuum consistency test is skipped.
     out.pop("s0z_upper", None)
@@ -362,14 +380,14 @@ def _physical_check(block: DecoyBlock, est: dict, key_errors: bool = True) -> tu
     """
     n_x, n_z, m_z = sum(block.key_detections), sum(block.test_detections), sum(block.test_errors)
     def pos(x):  # a lower bound on a non-negative count, as a float
-        return max(A.floor_arb(x), 0.0)
+        return max(R.floor_arb(x), 0.0)
 
     bad = []
     if pos(est["s0"]) + pos(est["s1"]) > n_x:
         bad.append("vacuum_key_detections_lower + single_photon_key_detections_lower > key-basis detections")
     if "s0z" in est and pos(est["s0z"]) + pos(est["s1z"]) > n_z or pos(est["s1z"]) > n_z:
         bad.append("vacuum_test_detections_lower + single_photon_test_detections_lower > test-basis detections")
-    if A.ceil_arb(est["v1"]) < 0:
+    if R.ceil_arb(est["v1"]) < 0:
         bad.append("single_photon_test_errors_upper < 0")
     # A vacuum detection is an error with probability 1/2 whatever the adversary does, so far fewer errors
     # than half the vacuum lower bound cannot come from the model.  This only rejects (key 0), which is
@@ -380,15 +398,15 @@ def _physical_check(block: DecoyBlock, est: dict, key_errors: bool = True) -> tu
         bad.append("key-basis errors fewer than half the vacuum lower bound allows")
     if "s0z" in est and pos(est["s0z"]) / 2.0 - math.sqrt(n_z * slack) > m_z:
         bad.append("test-basis errors fewer than half the vacuum lower bound allows")
-    if "s0_upper" in est and (A.floor_arb(est["s0"]) > A.ceil_arb(est["s0_upper"])
-                              or A.floor_arb(est["s0z"]) > A.ceil_arb(est["s0z_upper"])):
+    if "s0_upper" in est and (R.floor_arb(est["s0"]) > R.ceil_arb(est["s0_upper"])
+                              or R.floor_arb(est["s0z"]) > R.ceil_arb(est["s0z_upper"])):
         bad.append("vacuum lower bound above the vacuum upper bound")
     est = dict(est)
     # the single-photon test detections are at most n_Z minus the vacuum test detections
     # (both integers, so K <= n_Z - ceil(s0Z_L))
     est["k_upper"] = n_z - int(math.ceil(pos(est["s0z"]))) if "s0z" in est else n_z
     est["v1_formula"] = est["v1"]
-    if A.ceil_arb(est["v1"]) > m_z:
+    if R.ceil_arb(est["v1"]) > m_z:
         est["v1"] = arb(m_z)
     return est, bad
 
@@ -414,19 +432,19 @@ def _phase_error_hoeffding(s1: arb, s1z: arb, v1: arb, eps_p: float, prec: int):
     in both, so plugging in lower bounds keeps it valid (proof note, section 6).
     """
     with ctx.workprec(prec):
-        lam = arb(max(A.ceil_arb(v1 / s1z), 0.0))      # upper end of v1_U / s1z_L
+        lam = arb(max(R.ceil_arb(v1 / s1z), 0.0))      # upper end of v1_U / s1z_L
         if lam >= arb(0.5):
             return arb(0.5), {"single_photon_error_rate_test_upper": 0.5}
-        g2 = A.sampling_gamma(arb(eps_p), lam if lam > 0 else arb(1e-300), s1z, s1, lambda x: x.log())
-        g2u = A.ceil_arb(g2)                          # upper end: gamma is an upper-bound quantity
-        gamma = arb(A.ceil_arb(arb(g2u).sqrt())) if g2u > 0 else arb(0)
-        n = int(math.ceil(A.floor_arb(s1)))
-        k = int(math.ceil(A.floor_arb(s1z)))
+        g2 = PE.sampling_gamma(arb(eps_p), lam if lam > 0 else arb(1e-300), s1z, s1, lambda x: x.log())
+        g2u = R.ceil_arb(g2)                          # upper end: gamma is an upper-bound quantity
+        gamma = arb(R.ceil_arb(arb(g2u).sqrt())) if g2u > 0 else arb(0)
+        n = int(math.ceil(R.floor_arb(s1)))
+        k = int(math.ceil(R.floor_arb(s1z)))
         mu = _get_bound("random_sampling").deviation_certified(eps_p, prec, key_bits=n, test_bits=k).hi
         phi = lam + (gamma if gamma >= arb(mu) else arb(mu))
-    phi_u = A.ceil_arb(phi)
-    return arb(min(phi_u, 0.5)), {"single_photon_error_rate_test_upper": A.ceil_arb(lam),
-                                  "sampling_term_2014_gamma": A.ceil_arb(gamma),
+    phi_u = R.ceil_arb(phi)
+    return arb(min(phi_u, 0.5)), {"single_photon_error_rate_test_upper": R.ceil_arb(lam),
+                                  "sampling_term_2014_gamma": R.ceil_arb(gamma),
                                   "sampling_term_rigorous_mu": float(mu)}
 
 
@@ -441,16 +459,16 @@ def _phase_error(method: str, est: dict, eps_p: float, prec: int):
     if method == "hoeffding":
         return _phase_error_hoeffding(s1, s1z, v1, eps_p, prec)
     # Lower bounds on integer counts: the count is at least the ceiling; upper bounds: at most the floor.
-    n = int(math.ceil(A.floor_arb(s1)))
-    k = int(math.ceil(A.floor_arb(s1z)))
-    e = max(int(math.floor(A.ceil_arb(v1))), 0)
+    n = int(math.ceil(R.floor_arb(s1)))
+    k = int(math.ceil(R.floor_arb(s1z)))
+    e = max(int(math.floor(R.ceil_arb(v1))), 0)
     k_hi = est.get("k_upper")
     k_hi = k if k_hi is None else max(int(k_hi), k)
     if n < 1 or k < 1:
         return arb(0.5), {}
     # The exact hypergeometric bound x(N)/N is not monotone in N (x steps by 1), so it cannot take the
     # lower bound s1_L in place of the unknown N; the Chernoff-Hoeffding form is monotone (proof note, sec. 6).
-    phi, p1, _ = A.kl_key_rate_upper(n, k, k_hi, e, eps_p, prec)
+    phi, p1, _ = PE.kl_key_rate_upper(n, k, k_hi, e, eps_p, prec)
     extra = {"single_photon_key_count": float(n), "single_photon_test_count": float(k),
              "single_photon_test_count_upper": float(k_hi), "single_photon_test_errors_upper": float(e),
              "single_photon_population_rate_upper": p1}
@@ -571,7 +589,7 @@ def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthRes
     ledger = block_ledger(block, method, analysis)
     eps_c = ledger.failure_probability("count_estimation")
     est = _estimates_certified(block, method, analysis, eps_c, prec, box=acc.ranges)
-    pos = lambda x: max(A.floor_arb(x), 0.0)  # noqa: E731
+    pos = lambda x: max(R.floor_arb(x), 0.0)  # noqa: E731
     est = dict(est)
     # on an accepted block the test detections and errors are at most the sums of the range tops
     n_z = sum(b for _, b in acc.ranges["test_basis"]["detections"])
@@ -583,7 +601,7 @@ def _fixed_length(block: DecoyBlock, statistics, prec, analysis) -> KeyLengthRes
                          f"key-basis detections the test accepts ({n_x_min})")
     est["k_upper"] = n_z - int(math.ceil(pos(est["s0z"])))
     est["v1_formula"] = est["v1"]
-    if A.ceil_arb(est["v1"]) > m_z:
+    if R.ceil_arb(est["v1"]) > m_z:
         est["v1"] = arb(m_z)
     fixed = _finish(block, method, analysis, ledger, est, prec, acc.ec_leak_bits)
     settings = {**fixed.settings, "mode": "fixed-length"}
@@ -613,8 +631,8 @@ def _finish(block, method, analysis, ledger, est, prec, leak_bits) -> KeyLengthR
     phi, extra = _phase_error(method, est, eps_p, prec)
     with ctx.workprec(prec):
         s0 = est["s0"]
-        s1 = A.clip0(est["s1"])
-        h = A.binary_entropy_arb_upper(phi)
+        s1 = R.clip0(est["s1"])
+        h = PE.binary_entropy_arb_upper(phi)
         ln2 = arb(2).log()
         # each chain rule costs log2(2/eps_ch^2) bits; the leftover hash lemma 2 log2(1/(2 eps_PA))
         chain = CHAIN_RULES * (2 / (arb(eps_ch) * arb(eps_ch))).log() / ln2
@@ -625,18 +643,18 @@ def _finish(block, method, analysis, ledger, est, prec, leak_bits) -> KeyLengthR
         total = s0 + single - leak - chain - pa - tag
     # A float certainly below the ball (float(total.lower()) would round to nearest whenever the caller's
     # flint precision exceeds 53 bits, and could land on the integer just above the lower end).
-    lower = A.floor_arb(total) if total.is_finite() else -math.inf
+    lower = R.floor_arb(total) if total.is_finite() else -math.inf
     length = max(0, int(math.floor(lower))) if math.isfinite(lower) else 0
-    terms = {"vacuum_bits": A.floor_arb(s0), "single_photon_bits": A.floor_arb(single),
-             "ec_leakage": float(leak_bits), "chain_rule_penalty": A.ceil_arb(chain),
-             "hash_penalty": A.ceil_arb(pa), "verification_tag": A.ceil_arb(tag),
-             "key_length_lower_bound": A.floor_arb(total)}
-    estimates = {"vacuum_key_detections_lower": A.floor_arb(est["s0"]),
-                 "single_photon_key_detections_lower": A.floor_arb(est["s1"]),
-                 "single_photon_test_detections_lower": A.floor_arb(est["s1z"]),
-                 "single_photon_test_errors_upper": A.ceil_arb(est["v1"]),
-                 "single_photon_test_errors_upper_before_clipping": A.ceil_arb(est["v1_formula"]),
-                 "phase_error_rate_upper": A.ceil_arb(phi), **extra}
+    terms = {"vacuum_bits": R.floor_arb(s0), "single_photon_bits": R.floor_arb(single),
+             "ec_leakage": float(leak_bits), "chain_rule_penalty": R.ceil_arb(chain),
+             "hash_penalty": R.ceil_arb(pa), "verification_tag": R.ceil_arb(tag),
+             "key_length_lower_bound": R.floor_arb(total)}
+    estimates = {"vacuum_key_detections_lower": R.floor_arb(est["s0"]),
+                 "single_photon_key_detections_lower": R.floor_arb(est["s1"]),
+                 "single_photon_test_detections_lower": R.floor_arb(est["s1z"]),
+                 "single_photon_test_errors_upper": R.ceil_arb(est["v1"]),
+                 "single_photon_test_errors_upper_before_clipping": R.ceil_arb(est["v1_formula"]),
+                 "phase_error_rate_upper": R.ceil_arb(phi), **extra}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
         assumptions=ASSUMPTIONS + _kato_extra(method, KATO_ASSUMPTION), terms=terms,
@@ -703,10 +721,10 @@ def _kato_extra(method: str, text: str) -> tuple:
 
 def _inconsistent_result(block, method, analysis, ledger, est, violations) -> KeyLengthResult:
     """Zero key for a block whose decoy bounds contradict its own totals (see :func:`_physical_check`)."""
-    estimates = {"vacuum_key_detections_lower": A.floor_arb(est["s0"]),
-                 "single_photon_key_detections_lower": A.floor_arb(est["s1"]),
-                 "single_photon_test_detections_lower": A.floor_arb(est["s1z"]),
-                 "single_photon_test_errors_upper": A.ceil_arb(est["v1"]),
+    estimates = {"vacuum_key_detections_lower": R.floor_arb(est["s0"]),
+                 "single_photon_key_detections_lower": R.floor_arb(est["s1"]),
+                 "single_photon_test_detections_lower": R.floor_arb(est["s1z"]),
+                 "single_photon_test_errors_upper": R.ceil_arb(est["v1"]),
                  "phase_error_rate_upper": 0.5, "note_block_inconsistent_with_decoy_model": 1.0}
     return KeyLengthResult(
         protocol=PROTOCOL_NAME, secret_key_length=0, ledger=ledger, statistics=method,

@@ -34,7 +34,9 @@ import numpy as np
 
 from ...domains import Domain
 from ...errors import ComputationError, InputError
-from .. import _decoy_analysis as A
+from ...decoy import closed_forms as CF
+from ...decoy import intervals as IV
+from .. import _phase_error as PE
 from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
                        Status, design_no_key)
 from .analysis import (CHAIN_RULES, DEFAULT_STATISTICS, count_events, key_length, term_specs,
@@ -232,23 +234,23 @@ class DesignProblem:
         eps_p = eps_s * eps_s    # the phase-error bound fails with probability at most the smoothing squared
         meth = self.statistics
         kdt, tdt, tet = kd.sum(axis=0), td.sum(axis=0), te.sum(axis=0)
-        kl, kh = A.count_interval_float(meth, kd, kdt, eps_c)
-        tl, th = A.count_interval_float(meth, td, tdt, eps_c)
-        el, eh = A.count_interval_float(meth, te, tet, eps_c)
+        kl, kh = IV.count_interval_float(meth, kd, kdt, eps_c)
+        tl, th = IV.count_interval_float(meth, td, tdt, eps_c)
+        el, eh = IV.count_interval_float(meth, te, tet, eps_c)
         mu_l, p_l = list(mu), list(p)
         if self.k == 3:
-            s0, s1 = A.three_intensity(mu_l, p_l, list(kl), list(kh), np.exp)
-            _, s1z = A.three_intensity(mu_l, p_l, list(tl), list(th), np.exp)
-            v1 = A.three_intensity_errors(mu_l, p_l, list(el), list(eh), np.exp)
+            s0, s1 = CF.three_intensity(mu_l, p_l, list(kl), list(kh), np.exp)
+            _, s1z = CF.three_intensity(mu_l, p_l, list(tl), list(th), np.exp)
+            v1 = CF.three_intensity_errors(mu_l, p_l, list(el), list(eh), np.exp)
         else:
-            kel, keh = A.count_interval_float(meth, ke, ke.sum(axis=0), eps_c)
+            kel, keh = IV.count_interval_float(meth, ke, ke.sum(axis=0), eps_c)
             vk = np.sqrt(kdt / 2 * np.log(1 / eps_c))
             vt = np.sqrt(tdt / 2 * np.log(1 / eps_c))
-            s0u = A.two_intensity_vacuum_upper(mu_l, p_l, keh[1], vk, np.exp)
-            s0, s1 = A.two_intensity(mu_l, p_l, list(kl), list(kh), s0u, np.exp)
-            s0zu = A.two_intensity_vacuum_upper(mu_l, p_l, eh[1], vt, np.exp)
-            _, s1z = A.two_intensity(mu_l, p_l, list(tl), list(th), s0zu, np.exp)
-            v1 = A.two_intensity_errors(mu_l, p_l, list(el), list(eh), np.exp)
+            s0u = CF.two_intensity_vacuum_upper(mu_l, p_l, keh[1], vk, np.exp)
+            s0, s1 = CF.two_intensity(mu_l, p_l, list(kl), list(kh), s0u, np.exp)
+            s0zu = CF.two_intensity_vacuum_upper(mu_l, p_l, eh[1], vt, np.exp)
+            _, s1z = CF.two_intensity(mu_l, p_l, list(tl), list(th), s0zu, np.exp)
+            v1 = CF.two_intensity_errors(mu_l, p_l, list(el), list(eh), np.exp)
         # True counts cannot exceed the detections, so these caps keep valid lower bounds valid and guard
         # the float path against rounding garbage.
         s0, s1 = np.minimum(s0, kdt), np.minimum(s1, kdt)
@@ -258,17 +260,17 @@ class DesignProblem:
         s1_safe = np.maximum(s1, 1.0)
         lam = np.clip(v1 / s1z_safe, 1e-12, 0.5)
         if meth == "hoeffding":
-            g2 = A.sampling_gamma(eps_p, lam, s1z_safe, s1_safe, np.log)
+            g2 = PE.sampling_gamma(eps_p, lam, s1z_safe, s1_safe, np.log)
             # as in the certified evaluation: max(gamma_2014, mu) with mu the random-sampling deviation
             # (finitekey.bounds.random_sampling), continued to real counts
-            mu = A.random_sampling_deviation_float(s1_safe, s1z_safe, eps_p)
+            mu = PE.random_sampling_deviation_float(s1_safe, s1z_safe, eps_p)
             phi = lam + np.maximum(np.sqrt(np.maximum(g2, 0.0)), mu)
         else:
             # float form of the Chernoff-Hoeffding bound of the final evaluation (with K_U = k_L)
-            phi = A.sampling_kl_rate_float(lam, s1_safe, np.maximum(s1z, 1e-3), eps_p)
-        h = A.binary_entropy_float(np.minimum(phi, 0.5)) + 4.0 * np.maximum(phi - 0.5, 0.0)
+            phi = PE.sampling_kl_rate_float(lam, s1_safe, np.maximum(s1z, 1e-3), eps_p)
+        h = PE.binary_entropy_float(np.minimum(phi, 0.5)) + 4.0 * np.maximum(phi - 0.5, 0.0)
         qber = np.clip(ke.sum(axis=0) / kdt, 1e-15, 0.5)
-        leak = sc.ec_efficiency * kdt * A.binary_entropy_float(qber)
+        leak = sc.ec_efficiency * kdt * PE.binary_entropy_float(qber)
         pen = (CHAIN_RULES * np.log(2 / (eps_ch * eps_ch)) + 2 * np.log(1 / (2 * eps_pa))
                + np.log(2 / sc.eps_cor)) / _LN2
         # s1 < 0 is charged directly (s1 (1 - h) would turn positive when both factors are negative)
@@ -480,7 +482,7 @@ def _expected_block(problem: DesignProblem, theta) -> tuple:
     te = [min(int(round(x)), d) for x, d in zip(c.test_errors, td)]
     nX = sum(kd)
     q = sum(ke) / nX if nX else 0.0
-    leak = int(math.ceil(sc.ec_efficiency * nX * float(A.binary_entropy_float(q)))) if 0 < q else 0
+    leak = int(math.ceil(sc.ec_efficiency * nX * float(PE.binary_entropy_float(q)))) if 0 < q else 0
     split_d = None if split is None else {n: float(split[j, 0]) for j, n in enumerate(SECRECY_TERMS)}
     if split_d is not None:
         tot = math.fsum(split_d.values())

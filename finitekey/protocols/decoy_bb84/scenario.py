@@ -14,7 +14,7 @@ import numpy as np
 from ...channel import FIELD_DOMAINS, Detector, Link, LinkModel, Source, check_intensity_list
 from ...domains import PROBABILITY, Domain
 from ...errors import InputError
-from .. import _decoy_analysis as A
+from .. import _phase_error as PE
 from .._fields import (SECURITY_SCHEMA_RULE, block_security_specs, one_of, read_label, security_fields_with,
                       security_targets)
 from .._spec import DefaultWarning, FieldSpec, by_name, sections_of
@@ -54,7 +54,7 @@ def gllp_rate(model: LinkModel, mu, ec_efficiency: float, sifting: float = 0.5):
     y1 = float(model.photon_yield(1))
     e1 = float(model.photon_error_yield(1)) / y1
     q1 = y1 * mu * np.exp(-mu)
-    r = sifting * (q1 * (1 - A.binary_entropy_float(e1)) - ec_efficiency * q * A.binary_entropy_float(eq))
+    r = sifting * (q1 * (1 - PE.binary_entropy_float(e1)) - ec_efficiency * q * PE.binary_entropy_float(eq))
     return np.maximum(r, 0.0)
 
 

@@ -34,7 +34,9 @@ from flint import arb, ctx
 
 from ...budget import Charge, Ledger, Role, TermSpec, allocate
 from ...errors import InputError
-from .. import _decoy_analysis as A
+from ...decoy import intervals as IV
+from ...decoy import rounding as R
+from .. import _phase_error as PE
 from .._batch import map_in_chunks
 from .._result import KEY, KeyLengthResult, NoKeyReason, Status
 from .block import SECRECY_TERMS, TFBlock
@@ -233,7 +235,7 @@ def key_length(block: TFBlock, statistics: str | None = None, prec: int = _PREC)
     T = block.effective_events
     with ctx.workprec(prec):
         def iv(c):
-            return A.count_interval_certified(method, c, T, eps_c, prec)
+            return IV.count_interval_certified(method, c, T, eps_c, prec)
         weak_lo = iv(block.weak_one_sided)[0]
         strong_hi = iv(block.strong_one_sided)[1]
         vac_lo, vac_hi = iv(block.vacuum)
@@ -243,33 +245,33 @@ def key_length(block: TFBlock, statistics: str | None = None, prec: int = _PREC)
         beta_p = -arb(eps_p).log()
         est = estimates(g, arb(block.acceptance_width_rad), weak_lo, strong_hi, vac_hi, vac_lo, x1_hi, beta_c,
                         beta_p, _ARB)
-        y1_lo = A.floor_arb(est["y1"])
-        m1_lo = max(A.floor_arb(est["m1"]), 0.0) if y1_lo > 0 else 0.0
+        y1_lo = R.floor_arb(est["y1"])
+        m1_lo = max(R.floor_arb(est["m1"]), 0.0) if y1_lo > 0 else 0.0
         n1 = chernoff_actual_lower(arb(m1_lo), beta_c, lambda x: x.sqrt()) if m1_lo > 0 else arb(0)
-        n1_lo = max(math.ceil(A.floor_arb(n1)), 0) if n1 > 0 else 0    # an integer count >= a real bound
-        mph_hi = max(A.ceil_arb(est["mph"]), 0.0)
+        n1_lo = max(math.ceil(R.floor_arb(n1)), 0) if n1 > 0 else 0    # an integer count >= a real bound
+        mph_hi = max(R.ceil_arb(est["mph"]), 0.0)
         ph = chernoff_actual_upper(arb(mph_hi), beta_p, lambda x: x.sqrt())
-        ph_hi = int(math.floor(A.ceil_arb(ph)))                        # an integer count <= a real bound
+        ph_hi = int(math.floor(R.ceil_arb(ph)))                        # an integer count <= a real bound
         if n1_lo >= 1:
-            phi = arb(min(A.ceil_arb(arb(ph_hi) / n1_lo), 0.5))
+            phi = arb(min(R.ceil_arb(arb(ph_hi) / n1_lo), 0.5))
         else:
             phi = arb(0.5)
-        h = A.binary_entropy_arb_upper(phi)
+        h = PE.binary_entropy_arb_upper(phi)
         ln2 = arb(2).log()
         chain = CHAIN_RULES * (2 / (arb(eps_ch) * arb(eps_ch))).log() / ln2
         pa = 2 * (1 / (2 * arb(eps_pa))).log() / ln2
         tag = (2 / arb(block.eps_cor)).log() / ln2
         single = arb(n1_lo) * (1 - h)
         total = single - block.ec_leak_bits - chain - pa - tag
-    lower = A.floor_arb(total) if total.is_finite() else -math.inf
+    lower = R.floor_arb(total) if total.is_finite() else -math.inf
     length = max(0, int(math.floor(lower))) if math.isfinite(lower) else 0
-    terms = {"untagged_bits": A.floor_arb(single), "ec_leakage": float(block.ec_leak_bits),
-             "chain_rule_penalty": A.ceil_arb(chain), "hash_penalty": A.ceil_arb(pa),
-             "verification_tag": A.ceil_arb(tag), "key_length_lower_bound": lower if math.isfinite(lower) else -1e300}
+    terms = {"untagged_bits": R.floor_arb(single), "ec_leakage": float(block.ec_leak_bits),
+             "chain_rule_penalty": R.ceil_arb(chain), "hash_penalty": R.ceil_arb(pa),
+             "verification_tag": R.ceil_arb(tag), "key_length_lower_bound": lower if math.isfinite(lower) else -1e300}
     estimates_out = {"single_photon_yield_lower": y1_lo, "untagged_expected_lower": m1_lo,
                      "untagged_bits_lower": float(n1_lo), "phase_errors_expected_upper": mph_hi,
-                     "phase_errors_upper": float(ph_hi), "phase_error_rate_upper": A.ceil_arb(phi),
-                     "slice_factor_sinc": A.floor_arb(est["s"])}
+                     "phase_errors_upper": float(ph_hi), "phase_error_rate_upper": R.ceil_arb(phi),
+                     "slice_factor_sinc": R.floor_arb(est["s"])}
     status = KEY
     if length == 0:
         status = _no_key(block, n1_lo, phi, terms)
@@ -324,7 +326,7 @@ def float_key_length(g: dict, width: float, counts: dict, leak, eps_sec: float, 
             b = math.log(1 / eps_c)
             c = np.maximum(c, 0.0)
             return np.maximum(c - np.sqrt(2 * b * c), 0.0), c + b + np.sqrt(b * b + 2 * b * c)
-        return A.count_interval_float(method, c, T, eps_c)
+        return IV.count_interval_float(method, c, T, eps_c)
     weak_lo = iv(counts["weak_one_sided"])[0]
     strong_hi = iv(counts["strong_one_sided"])[1]
     vac_lo, vac_hi = iv(counts["vacuum"])
