@@ -301,3 +301,13 @@ def test_statistics_that_fit_no_state_give_no_key_not_an_error():
     proto = protocols.get("described")
     res = proto.key_length(proto.parse_block(bad))
     assert res.secret_key_length == 0 and res.status.reason.value == "inconsistent_block"
+
+
+def test_verification_tag_is_the_exact_ceiling_of_log2_one_over_eps_cor():
+    # exact rational check (Python's fractions): 2^-t <= eps_cor < 2^-(t-1)
+    from fractions import Fraction
+
+    from finitekey.protocols.described.analysis import verification_tag_bits
+    for eps in (1e-15, 2.0 ** -40, 0.3, 1e-100, 0.5):
+        t = verification_tag_bits(eps)
+        assert Fraction(1, 2 ** t) <= Fraction(eps) < Fraction(2, 2 ** t)

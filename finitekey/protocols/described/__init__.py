@@ -11,7 +11,7 @@ from __future__ import annotations
 from ..._threads import with_one_blas_thread
 from .._registry import register
 from .._spec import protocol_schema, table_rows
-from . import analysis, block, description, scenario
+from . import analysis, block, description, design, scenario
 from .analysis import key_length, key_length_batch, term_specs
 from .block import BLOCK_SCHEMA_RULES, BLOCK_SPECS, PROTOCOL_NAME, DescribedBlock, parse_block
 from .description import Description, parse_description
@@ -19,7 +19,7 @@ from .scenario import SCENARIO_SCHEMA_RULES, SCENARIO_SPECS, DescribedScenario, 
 
 __all__ = ["Described", "DESCRIBED_PROTOCOL", "PROTOCOL_NAME", "DescribedBlock", "DescribedScenario", "Description",
            "parse_block", "parse_scenario", "parse_description", "key_length", "key_length_batch", "term_specs",
-           "analysis", "block", "description", "scenario"]
+           "analysis", "block", "description", "design", "scenario"]
 
 
 class Described:
@@ -39,8 +39,7 @@ class Described:
     @staticmethod
     def asymptotic_rate(scenario):
         """Key per round of an infinite block (see :func:`.design.asymptotic_rate`)."""
-        from .design import asymptotic_rate
-        return asymptotic_rate(scenario)
+        return design.asymptotic_rate(scenario)
 
     @staticmethod
     def key_length(block, statistics=None):
@@ -52,21 +51,17 @@ class Described:
         """:func:`.analysis.key_length_batch` (see there for the parameters)."""
         return key_length_batch(blocks, statistics, jobs=jobs)
 
-    # design.py sits above analysis and scenario in this package; imported on use so that registering the
-    # protocol does not load the search code.
     @staticmethod
     @with_one_blas_thread
     def design(scenario, statistics=None, **options):
         """:func:`.design.design` with one BLAS thread (see there for the parameters)."""
-        from .design import design
-        return design(scenario, statistics, **options)
+        return design.design(scenario, statistics, **options)
 
     @staticmethod
     @with_one_blas_thread
     def blocksize(scenario, target, statistics=None, **options):
         """:func:`.design.blocksize` with one BLAS thread (see there for the parameters)."""
-        from .design import blocksize
-        return blocksize(scenario, target, statistics, **options)
+        return design.blocksize(scenario, target, statistics, **options)
 
     @staticmethod
     def fields_table() -> dict:

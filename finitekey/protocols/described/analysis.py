@@ -137,9 +137,16 @@ def aep_penalty(n, eps_smooth, key_size: int, *, ball: bool = False):
 
 
 def verification_tag_bits(eps_cor: float) -> int:
-    """``ceil(log2(1/eps_cor))``, exactly (as for BB84)."""
-    from ..bb84 import verification_tag_bits as tag
-    return tag(eps_cor)
+    """``ceil(log2(1/eps_cor))``: the smallest ``t`` with ``2^-t <= eps_cor``, exactly (rational comparison).
+
+    The same rule as BB84's tag; written here because a protocol package may not import another one.
+    """
+    from fractions import Fraction
+    x = Fraction(eps_cor)
+    t = max(0, math.ceil(-math.log2(eps_cor)) - 2)
+    while Fraction(1, 2 ** t) > x:
+        t += 1
+    return t
 
 
 ASSUMPTIONS = (
