@@ -22,7 +22,7 @@ import pytest
 from finitekey import protocols
 from finitekey.cli import main
 from finitekey.entropy import binary_entropy
-from finitekey.errors import InputError
+from finitekey.errors import ComputationError, InputError
 from finitekey.protocols.described import description as D
 from finitekey.protocols.described import scenario as S
 from finitekey.protocols.described.analysis import interval_count, key_length
@@ -206,7 +206,7 @@ def test_six_state_one_way_rate_and_threshold():
         assert (r > 0) == (q < 0.1262)
 
 
-@pytest.mark.xfail(raises=np.linalg.LinAlgError, strict=True,
+@pytest.mark.xfail(raises=ComputationError, strict=True,
                    reason="finitekey.numerical certificate at 4ec1903 (exact factors): eigh of a matrix with NaN for "
                           "Bob's space with a vacuum vector; reported to the solver's owner; passes with 183999d")
 def test_detector_mismatch_costs_key_and_more_with_more_mismatch():
@@ -314,3 +314,18 @@ def test_verification_tag_is_the_exact_ceiling_of_log2_one_over_eps_cor():
     for eps in (1e-15, 2.0 ** -40, 0.3, 1e-100, 0.5):
         t = verification_tag_bits(eps)
         assert Fraction(1, 2 ** t) <= Fraction(eps) < Fraction(2, 2 ** t)
+
+
+def test_a_solver_failure_is_a_computation_error_not_a_traceback(monkeypatch, capsys):
+    # No certified bound, no key length: a failure inside the solver becomes one ComputationError line.
+    import finitekey.numerical.solver as solver
+
+    def broken(problem, **kw):
+        raise np.linalg.LinAlgError("Eigenvalues did not converge")
+    monkeypatch.setattr(solver, "solve", broken)
+    proto = protocols.get("described")
+    with pytest.raises(ComputationError, match="numerical solver failed"):
+        proto.key_length(proto.parse_block(json.loads(BLOCK.read_text())))
+    rc = main(["keylength", str(BLOCK)])
+    err = capsys.readouterr().err.strip()
+    assert rc != 0 and err.count("\n") == 0 and "numerical solver failed" in err

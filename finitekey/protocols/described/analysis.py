@@ -189,16 +189,23 @@ def solve_problem(desc: Description, lower: np.ndarray, upper: np.ndarray):
     ------
     NoFeasibleState
         When the solver finds the constraints infeasible (the statistics contradict the description).
+    ComputationError
+        When the solver or its certificate fails (no certified bound).
     """
     from ...errors import InputError
     from ...numerical.solver import solve   # cvxpy/qics behind it: imported on use (seconds of import time)
     pic = picture(desc)
+    prob = problem(desc, pic, lower, upper)
     try:
-        return solve(problem(desc, pic, lower, upper))
+        return solve(prob)
     except InputError as exc:
         if exc.field == "constraints":
             raise NoFeasibleState(str(exc)) from None
         raise
+    except (np.linalg.LinAlgError, FloatingPointError, ValueError) as exc:
+        # a failure inside the solver or its certificate: no bound, so no key length can be vouched for
+        raise ComputationError(f"the numerical solver failed ({type(exc).__name__}: {exc}); no certified "
+                               "bound for these statistics") from None
 
 
 def length_from(n: int, beta: float, leak: int, tag: int, eps_smooth: float, eps_pa: float, key_size: int,
