@@ -57,6 +57,31 @@ def test_single_photon_yield_bound_is_below_the_exact_yield_and_close_to_it():
         assert est["y1"] >= 0.9 * true
 
 
+def test_decoy_engine_bound_agrees_with_the_closed_form_derived_in_the_note():
+    """finitekey.decoy (closed form and LP) against the inequality of the note, section 3.2, at exact counts:
+    the engine is never above it by more than rounding and within 1e-4 of it (closed form) and 1e-3 (LP)."""
+    from flint import arb
+    from finitekey import decoy
+    for d in (50.0, 300.0, 450.0):
+        link = _link(d)
+        c = S.expected_counts(link, PARAMS, 1e12)
+        own = AN.estimates(AN.flat_parameters(PARAMS), link.acceptance_width_rad, c["weak_one_sided"],
+                           c["strong_one_sided"], c["vacuum"], c["vacuum"], c["x1_errors"], 1.0, 1.0)["y1"]
+        eng = float(AN.single_photon_yield_lower(PARAMS, link.acceptance_width_rad, arb(c["weak_one_sided"]),
+                                                 arb(c["strong_one_sided"]), arb(c["vacuum"]), arb(c["vacuum"]),
+                                                 c["effective_events"]))
+        assert own * (1 - 1e-4) <= eng <= own * (1 + 1e-12)
+        cl = S.class_probabilities(PARAMS, link.acceptance_width_rad)
+        w = (cl["strong_one_sided"], cl["weak_one_sided"], cl["vacuum"])
+        q = tuple(x / sum(w) for x in w)
+        mus = (PARAMS.decoy_intensities[1], PARAMS.decoy_intensities[0], 0.0)
+        lo = [0.0, c["weak_one_sided"], c["vacuum"]]
+        hi = [c["strong_one_sided"], c["effective_events"], c["vacuum"]]
+        lp = float(decoy.bound([decoy.Sender(mus, q)], lo, hi, (1,), "lower", method="lp"))
+        tau1 = sum(qq * m * math.exp(-m) for qq, m in zip(q, mus))
+        assert lp / (tau1 * sum(w)) == pytest.approx(own, rel=1e-3)
+
+
 def test_phase_error_bound_at_exact_counts_is_above_the_models_exact_phase_errors():
     """At exact expected counts the expected-phase-error bound must dominate the model's exact value
     (exact single-photon X1 errors, section 3.4), and be close when the vacuum term is small."""

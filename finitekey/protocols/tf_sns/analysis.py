@@ -128,7 +128,8 @@ _FLOAT = _Ops(np.exp, np.sqrt, np.sin, np.maximum)
 _ARB = _Ops(lambda x: x.exp(), lambda x: x.sqrt(), lambda x: x.sin(), None)
 
 
-def estimates(params, width, weak_lo, strong_hi, vac_hi, vac_lo, x1err_hi, beta_c, beta_p, ops=_FLOAT) -> dict:
+def estimates(params, width, weak_lo, strong_hi, vac_hi, vac_lo, x1err_hi, beta_c, beta_p, ops=_FLOAT,
+              y1=None) -> dict:
     """The decoy, untagged-count and phase-error estimates from bounds on expected counts (note, section 3-4).
 
     Parameters
@@ -139,6 +140,9 @@ def estimates(params, width, weak_lo, strong_hi, vac_hi, vac_lo, x1err_hi, beta_
         one-sided classes, the vacuum class (both sides) and the X1 errors
     beta_c, beta_p : ``ln(1/eps)`` of the untagged-count conversion and of the phase-error deviation
     ops : _Ops
+    y1 : optional
+        A lower bound on the one-sided single-photon yield computed elsewhere (the certified path takes it
+        from :func:`finitekey.decoy.bound`); by default the vacuum + two decoys closed form below.
 
     Returns
     -------
@@ -157,8 +161,9 @@ def estimates(params, width, weak_lo, strong_hi, vac_hi, vac_lo, x1err_hi, beta_
     c0_lo = vac_lo / cl["vacuum"]
     # vacuum + two decoys (one-sided states): mu1 mu2 (mu2 - mu1) y1 >= mu2^2 e^mu1 c1 - mu1^2 e^mu2 c2
     #                                                                   - (mu2^2 - mu1^2) y0
-    y1 = (mu2 * mu2 * exp(mu1) * c1 - mu1 * mu1 * exp(mu2) * c2 - (mu2 * mu2 - mu1 * mu1) * c0_hi) / (
-        mu1 * mu2 * (mu2 - mu1))
+    if y1 is None:
+        y1 = (mu2 * mu2 * exp(mu1) * c1 - mu1 * mu1 * exp(mu2) * c2 - (mu2 * mu2 - mu1 * mu1) * c0_hi) / (
+            mu1 * mu2 * (mu2 - mu1))
     r_z = cl["untagged_key"] * mu_z * exp(-mu_z)
     m1 = r_z * y1
     half = width / 2
@@ -199,6 +204,38 @@ def chernoff_actual_upper(m, beta, sqrt):
     """``m + (beta + sqrt(beta^2 + 8 beta m))/2``: exceeded with probability at most ``e^{-beta}``
     (Mitzenmacher-Upfal Thm 4.4, ``exp(-d^2 m/(2+d))`` form); increasing in ``m``."""
     return m + (beta + sqrt(beta * beta + 8 * beta * m)) / 2
+
+
+def single_photon_yield_lower(params, width, weak_lo, strong_hi, vac_lo, vac_hi, total, prec=_PREC) -> arb:
+    """Certified lower bound on the one-sided single-photon yield ``y_1`` from the decoy engine.
+
+    The merged one-sided classes (strong, weak, vacuum) are one virtual sender with intensities
+    ``(mu_2, mu_1, 0)`` chosen with probabilities proportional to the class probabilities ``P_k``
+    (note, section 3.2); the counts are rescaled by ``q_k / P_k`` so that :func:`finitekey.decoy.bound`'s
+    single-photon count ``s_1`` (the closed form of Lim et al. 2014 here, equal to the vacuum + two decoys
+    form of :func:`estimates`) gives ``y_1 = s_1 / tau_1``.  Sides of the intervals the analysis does not charge are given
+    their trivial values (0 and ``total``), which always hold.
+
+    Returns
+    -------
+    arb
+    """
+    from ... import decoy   # the decoy engine sits below the protocols
+    g = {k: arb(v) for k, v in flat_parameters(params).items()}
+    with ctx.workprec(prec):
+        cl = _classes(g, arb(width))
+        weights = (cl["strong_one_sided"], cl["weak_one_sided"], cl["vacuum"])
+        tot = weights[0] + weights[1] + weights[2]
+        q = tuple(float(w / tot) for w in weights)     # any positive floats would do: the counts are rescaled
+        mus = (params.decoy_intensities[1], params.decoy_intensities[0], 0.0)
+        # E[C_k] = P_k sum_n e^{-mu_k} mu_k^n/n! y_n, so E[C_k] q_k / P_k has the engine's form with
+        # s_n / tau_n = y_n exactly (tau_n over the floats q)
+        r = [arb(qq) / w for qq, w in zip(q, weights)]
+        lo = [arb(0), weak_lo * r[1], vac_lo * r[2]]
+        hi = [strong_hi * r[0], arb(total) * r[1], vac_hi * r[2]]
+        s1 = decoy.bound([decoy.Sender(mus, q)], lo, hi, (1,), "lower", prec=prec)
+        tau1 = sum((arb(qq) * arb(m) * (-arb(m)).exp() for qq, m in zip(q, mus)), arb(0))
+        return s1 / tau1
 
 
 def _check_statistics(statistics):
@@ -243,8 +280,10 @@ def key_length(block: TFBlock, statistics: str | None = None, prec: int = _PREC)
         g = {k: arb(v) for k, v in flat_parameters(block.parameters).items()}
         beta_c = -arb(eps_c).log()
         beta_p = -arb(eps_p).log()
+        y1 = single_photon_yield_lower(block.parameters, block.acceptance_width_rad, weak_lo, strong_hi, vac_lo,
+                                       vac_hi, T, prec)
         est = estimates(g, arb(block.acceptance_width_rad), weak_lo, strong_hi, vac_hi, vac_lo, x1_hi, beta_c,
-                        beta_p, _ARB)
+                        beta_p, _ARB, y1=y1)
         y1_lo = R.floor_arb(est["y1"])
         m1_lo = max(R.floor_arb(est["m1"]), 0.0) if y1_lo > 0 else 0.0
         n1 = chernoff_actual_lower(arb(m1_lo), beta_c, lambda x: x.sqrt()) if m1_lo > 0 else arb(0)
@@ -281,7 +320,7 @@ def key_length(block: TFBlock, statistics: str | None = None, prec: int = _PREC)
                                f"key detections {block.key_detections}")
     return KeyLengthResult(protocol=PROTOCOL_NAME, secret_key_length=length, ledger=ledger, statistics=method,
                            assumptions=ASSUMPTIONS, terms=terms, estimates=estimates_out, formula=FORMULA,
-                           references=REFERENCES, status=status, settings={"analysis": "vacuum+two-decoys"})
+                           references=REFERENCES, status=status, settings={"analysis": "one-sided decoy bound by finitekey.decoy (vacuum + two decoys)"})
 
 
 def _no_key(block, n1_lo, phi, terms) -> Status:
