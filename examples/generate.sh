@@ -25,3 +25,10 @@ fk plot freespace_pass.toml --vary link.extra_loss_db=24:40:2 --vary block.pulse
 # a full report for one of them
 fk report metro_datacentre.toml --vary link.distance_km=0:80:20 --vary block.pulses=1e9,1e11 \
    -o metro_datacentre_report.html --latex metro_datacentre_report.tex
+
+# 4. twin-field link through an untrusted relay (tf-sns): the example block, a table and a rate plot
+python make_tf_block.py
+fk table coastal_relay_tf.toml --vary link.distance_km=300:500:100 --vary block.windows=1e12,1e14 \
+   -o coastal_relay_tf_table.md
+fk plot coastal_relay_tf.toml --vary link.distance_km=100:600:50 --vary block.windows=1e12,1e14 \
+   -o coastal_relay_tf_rate.png

@@ -27,6 +27,7 @@ unless the file fixes them.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import asdict, dataclass, replace
 
@@ -154,17 +155,13 @@ class TwinFieldLink:
         mu = np.asarray(mu, dtype=float)[..., None]
         a, b = ar.eta_a * mu, ar.eta_b * mu
         q = 1.0 - self.dark_count_probability
-        x, w = _GL
-        y, v = _GH
-        half = self.acceptance_width_rad / 2.0
-        phi = ((half * x)[:, None] + (self.phase_drift_std_rad * y)[None, :]).ravel()
-        wts = ((w / 2.0)[:, None] * (v / math.sqrt(2.0 * math.pi))[None, :]).ravel()
+        cosp, wts = _x1_nodes(self.acceptance_width_rad, self.phase_drift_std_rad)
         s = a + b
         c = self.visibility * np.sqrt(a * b)
         base = q * q * np.exp(-s[..., 0])
         # wrong detector R: (1-p) e^{-I_L} - (1-p)^2 e^{-S}, I_L = S/2 + c cos(phi); right detector with -c
-        err = q * np.sum(np.exp(-s / 2.0 - c * np.cos(phi)) * wts, axis=-1) - base
-        good = q * np.sum(np.exp(-s / 2.0 + c * np.cos(phi)) * wts, axis=-1) - base
+        err = q * np.sum(np.exp(-s / 2.0 - c * cosp) * wts, axis=-1) - base
+        good = q * np.sum(np.exp(-s / 2.0 + c * cosp) * wts, axis=-1) - base
         return good + err, err
 
     def single_photon_yield(self) -> float:
@@ -185,6 +182,19 @@ class TwinFieldLink:
         h = (ar.eta_a + ar.eta_b) / 2.0
         return ((1 - p) * (ar.eta_a + ar.eta_b - 2 * self.visibility * math.sqrt(ar.eta_a * ar.eta_b) * cos_mean)
                 / 4.0 + (1 - h) * p * (1 - p))
+
+
+@functools.lru_cache(maxsize=64)
+def _x1_nodes(width: float, sigma: float) -> tuple:
+    """Quadrature nodes ``cos(phi)`` and weights over the slice (Gauss-Legendre) and the drift (Gauss-Hermite)."""
+    x, w = _GL
+    y, v = _GH
+    phi = ((width / 2.0 * x)[:, None] + (sigma * y)[None, :]).ravel()
+    wts = ((w / 2.0)[:, None] * (v / math.sqrt(2.0 * math.pi))[None, :]).ravel()
+    cosp, wts = np.cos(phi), wts
+    cosp.flags.writeable = False
+    wts.flags.writeable = False
+    return cosp, wts
 
 
 def _i0e(x):
