@@ -74,8 +74,9 @@ ASSUMPTIONS = (
     "the relay (Charlie) and the channel are untrusted; only the announced effective events are used",
     "the phase reference that defines the accepted slices (|theta_A - theta_B - psi| <= D_s/2, or near pi) is "
     "fixed before the block, not fitted to the block's own data",
-    "both sides use the same intensities and probabilities (the one-sided classes are symmetric); asymmetric "
-    "arms are allowed and only cost key through the model's error rates",
+    "both sides use the same intensities and probabilities, so the merged one-sided classes (either side "
+    "sending) have the single-photon state (|10><10| + |01><01|)/2; only merged counts are used; asymmetric arms "
+    "are allowed and only cost key through the model's error rates",
     "window type, intensity and sending decisions are chosen independently each window with the declared "
     "probabilities and announced after the block's last window is measured",
     "block closed after a number of windows fixed before it (closed_by = rounds), never when quotas fill",
