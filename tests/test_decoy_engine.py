@@ -169,7 +169,8 @@ def test_two_sender_closed_form_float_twin_agrees_with_certified():
 def test_wildcard_targets_contain_the_truth():
     E, truth = _expected([A3, B3], _mdi_yield(), 1e12, n_cut=25)
     lo, hi = _widen(E, 1e-6)
-    for tgt in [(0, "*"), ("*", 0), [(0, "*"), ("*", 0)], (1, 0), (2, 1)]:
+    # the one-photon state of a sending-or-not-sending window is the pair (1,0) + (0,1): a union target
+    for tgt in [(0, "*"), ("*", 0), [(0, "*"), ("*", 0)], (1, 0), (2, 1), [(1, 0), (0, 1)]]:
         pats = tgt if isinstance(tgt, list) else [tgt]
         t = sum(v for n, v in truth.items() if any(all(e == "*" or e == m for e, m in zip(p, n)) for p in pats))
         lo_b = float(D.bound([A3, B3], lo, hi, tgt, "lower").mid())
