@@ -239,3 +239,22 @@ def test_exact_factors_reproduce_omega_and_fallback_is_flagged():
     assert r0.details["exact_factors"]
     assert not r.details["exact_factors"] and r.details["factor_error"] > 0
     assert r.certified_lower <= r.primal and abs(r.certified_lower - r0.certified_lower) < 1e-6
+
+
+def test_rounding_noise_rank_falls_back_to_float_factors():
+    # A rank-one POVM element built in floats (outer(u, u), u = (cos 0.3, sin 0.3)) has exact rank 2 with an
+    # eigenvalue of rounding size (det about 1e-17): the exact factor then has a row of size 1e-9 and the image
+    # is too ill-conditioned for its logarithm.  The certificate must fall back to the float factor (it crashed
+    # with "Eigenvalues did not converge" before), flag it, and stay below the primal value.
+    import dataclasses
+    from finitekey.numerical.reference import werner
+    u = np.array([math.cos(0.3), math.sin(0.3)])
+    n0 = np.outer(u, u) / 2
+    base, _ = bb84_depolarising(0.05)
+    povm_b = (n0, np.eye(2) / 2 - n0) + base.povm_b[2:]
+    stats = model.expected_statistics((base.povm_a, povm_b), werner(0.05))
+    prob = dataclasses.replace(base, povm_b=povm_b, announcements=(model.Announcement((0, 1), (0,)),),
+                               constraints=model.statistics_constraints(base.povm_a, povm_b, stats))
+    r = solve(prob)
+    assert not r.details["exact_factors"]
+    assert r.certified_lower <= r.primal and r.gap < 1e-6

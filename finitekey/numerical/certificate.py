@@ -84,6 +84,8 @@ def lambda_min_lower(s: acb_mat, mid: np.ndarray) -> arb:
         A number at most the smallest eigenvalue of every Hermitian matrix in ``s`` (the bound holds for the
         Hermitian matrix the balls contain).
     """
+    if not np.all(np.isfinite(mid)):
+        return arb(-math.inf)
     w, q = np.linalg.eigh((mid + mid.conj().T) / 2)
     qa = _acb_mat(q)
     n = len(w)
@@ -130,6 +132,8 @@ class Certificate:
 
 def _log_error(x_ball: acb_mat, h: np.ndarray) -> arb:
     """Upper bound on ``||log X - h||`` for the positive definite matrix ``X`` in ``x_ball``."""
+    if not np.all(np.isfinite(h)):
+        return arb(math.inf)
     e = _acb_mat(h).exp()
     d = _frob_upper(x_ball - e)
     lam_h = lambda_min_lower(_acb_mat(h), h)
@@ -180,6 +184,13 @@ def certify(problem, blocks, rho: np.ndarray, y, constraints, *, prec: int = 106
             terms = [(1, blk.g, every)] + [(-1, z, xs) for z, xs in zip(blk.z, blk.alice_sets)]
             for sign, f, alice in terms:
                 fb = _exact_factor(problem, alice, blk.bob)
+                if fb is not None:
+                    f_exact = _mid(fb)
+                    w = np.linalg.eigvalsh(f_exact @ rho @ f_exact.conj().T)
+                    if not (np.all(np.isfinite(w)) and w[0] > 1e-13 * max(w[-1], 1e-300)):
+                        # Omega has eigenvalues that are rounding noise (e.g. 1/sqrt(2)^2 - 1/2): its exact rank
+                        # exceeds the numerical one and the image is too ill-conditioned for a useful log.
+                        fb = None
                 if fb is None:              # Omega not exactly PSD (inputs PSD only within tolerance)
                     exact = False
                     fb = _acb_mat(f)
@@ -189,7 +200,7 @@ def certify(problem, blocks, rho: np.ndarray, y, constraints, *, prec: int = 106
                     elif t > 0:
                         factor_err += (2 * (t * arb(d).log() - t * t.log()) + t).upper()
                 else:
-                    f = _mid(fb)
+                    f = f_exact
                 x = fb * rho_b * _dag(fb)
                 h = _logm_h(f @ rho @ f.conj().T)
                 h = (h + h.conj().T) / 2
