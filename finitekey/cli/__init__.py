@@ -45,6 +45,8 @@ SUBCOMMANDS = (
     SubCommand("table", "table_cmd", "TABLE",
                "parameter table over a grid of scenarios (design, fixed or block size)"),
     SubCommand("plot", "plot_cmd", "PLOT", "plot key rate, smallest block size or the epsilon ledger"),
+    SubCommand("compare", "compare_cmd", "COMPARE",
+               "several scenario files (any protocols) designed over one grid: one table and one figure"),
     SubCommand("report", "report_cmd", "REPORT", "self-contained offline HTML report (and optional LaTeX fragment)"),
     SubCommand("fields", "fields_cmd", "FIELDS",
                "list every scenario and block field of a protocol: type, unit, default, allowed range"),

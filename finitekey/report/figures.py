@@ -16,10 +16,12 @@ from __future__ import annotations
 
 from ..errors import FiniteKeyError, InputError
 from .formats import short_number, status_text
-from .plots import Curve, axis_label, blocksize_figure, ledger_figure, rate_figure, repeaterless_bound, use_log
+from .plots import (Curve, axis_label, blocksize_figure, compare_figure, ledger_figure, rate_figure, repeaterless_bound,
+                    use_log)
+from .compare import SCENARIO_FIELD, CompareTable, channel_transmittance
 from .sweep import SweepTable, _scenario_at
 
-__all__ = ["KINDS", "blocksize_plot", "ledger_plot", "rate_plot", "rate_quantity", "reference_curves", "scenario_name",
+__all__ = ["KINDS", "blocksize_plot", "compare_plot", "ledger_plot", "rate_plot", "rate_quantity", "reference_curves", "scenario_name",
            "series"]
 
 KINDS = ("rate", "blocksize", "ledger")
@@ -96,18 +98,13 @@ def rate_quantity(table: SweepTable) -> tuple:
     return "secret_key_rate_per_pulse", "bit/pulse"
 
 
-def _fibre_transmittance(scenario):
-    """Transmittance of the link alone (no detector): the channel the repeaterless bound is about."""
-    fibre = getattr(getattr(scenario, "link", None), "fibre_transmittance", None)
-    if callable(fibre):   # a relay link (tf-sns): the end-to-end fibre of both arms
-        return float(fibre())
-    model = getattr(scenario, "model", None)
-    link = getattr(model, "link", None)
-    loss = getattr(link, "loss_db", None)
-    if loss is None:
-        return None
-    from ..channel import transmittance
-    return float(transmittance(loss, 1.0))
+def _fibre_transmittance(scenario, proto=None):
+    """Transmittance of the link alone (no detector): the channel the repeaterless bound is about.
+
+    :func:`finitekey.report.compare.channel_transmittance` (the protocol's optional hook, then the link
+    models the protocols share).
+    """
+    return channel_transmittance(proto, scenario)
 
 
 def _asymptotic(proto, scenario, unit: str):
@@ -154,7 +151,7 @@ def reference_curves(table: SweepTable, loaded, unit: str = "bit/pulse") -> list
         if a is not None:
             asym_x.append(x)
             asym_y.append(a)
-        eta = _fibre_transmittance(scenario) if unit == "bit/pulse" else None
+        eta = _fibre_transmittance(scenario, proto) if unit == "bit/pulse" else None
         if eta is not None and 0 <= eta < 1:
             bound_x.append(x)
             bound_y.append(float(repeaterless_bound(eta)))
@@ -216,3 +213,76 @@ def ledger_plot(ledger: list, protocol: str = "", note: str = "", scenario: str 
 def _note(table: SweepTable) -> str:
     p = table.provenance
     return f"finitekey {p.get('version', '')} · input sha256 {p.get('input_sha256', '')[:12]}"
+
+
+def compare_plot(table: CompareTable, per_second: bool = False, title: str | None = None, size=None):
+    """One curve per scenario of a comparison against the first varied field, the bound and its crossings.
+
+    Parameters
+    ----------
+    table : CompareTable
+        From :func:`finitekey.report.compare.run_compare`; every varied field after the first must have a
+        single value.
+    per_second : bool
+        Plot the key rate in bits per second instead of bits per pulse; the repeaterless bound (per channel
+        use) and its crossings are then not drawn.
+    title : str, optional
+    size : (float, float), optional
+        Width and height in inches.
+
+    Raises
+    ------
+    InputError
+        Without a varied field, with a second varied field of several values, or when no scenario has a
+        positive rate.
+    """
+    axes = table.axes[1:]
+    if not axes:
+        raise InputError("--vary", None, "at least one varied field for the horizontal axis of the plot")
+    multi = [a for a in axes[1:] if len(a.values) > 1]
+    if multi:
+        raise InputError("--vary", multi[0].text, "a single value for every varied field after the first in a "
+                                                  "plot (one curve per scenario along the first field)")
+    xf = axes[0].field
+    key, rate_unit = ("secret_key_rate_bps", "bit/s") if per_second else ("secret_key_rate_per_pulse", "bit/pulse")
+    curves, bounds = [], {}
+    for sc in table.scenarios:
+        label = sc["label"]
+        rows = [r for r in table.rows if r["point"][SCENARIO_FIELD] == label]
+        xs, ys, nk_x, nk_reasons = [], [], [], []
+        for r in rows:
+            if r.get("error"):
+                continue
+            status = r.get("status") or {}
+            if status and not status.get("key"):
+                nk_x.append(r["point"][xf])
+                text = f"{label}: {status_text(status).removeprefix('no key: ')}"
+                if text not in nk_reasons:
+                    nk_reasons.append(text)
+                continue
+            xs.append(r["point"][xf])
+            ys.append(r.get(key))
+        curves.append(Curve(label, tuple(xs), tuple(ys), kind="finite",
+                            meta={"no_key_x": tuple(nk_x), "no_key_reasons": tuple(nk_reasons)}))
+        bx = tuple(r["point"][xf] for r in rows if r.get("repeaterless_bound") is not None)
+        by = tuple(r["repeaterless_bound"] for r in rows if r.get("repeaterless_bound") is not None)
+        if bx and not per_second:
+            bounds.setdefault((bx, tuple(round(v, 12) for v in by)), (by, []))[1].append(label)
+    for (bx, _), (by, labels) in bounds.items():
+        whose = "" if len(bounds) == 1 else " of the link of " + ", ".join(labels)
+        curves.append(Curve("repeaterless bound −log₂(1−η)" + whose + ", η = channel transmittance (detector "
+                            "excluded)", bx, by, kind="bound"))
+    xlabel = axis_label(xf)
+    unit = xlabel.rpartition(" (")[2].rstrip(")") if xlabel.endswith(")") else ""
+    crossings = [] if per_second else [
+        {"x": c["x"], "label": f"{c['scenario']}: rate {'above' if c['direction'] == 'above' else 'below'} the "
+                               f"bound beyond about {short_number(c['x'])}" + (f" {unit}" if unit else "")
+                               + " (interpolated)"}
+        for c in table.crossings]
+    xs = axes[0].values
+    name = title if title is not None else "secret key rate: " + ", ".join(s["label"] for s in table.scenarios)
+    p = table.provenance
+    shas = ", ".join(i.get("input_sha256", "")[:12] for i in p.get("inputs", ()))
+    note = f"finitekey {p.get('version', '')} · inputs sha256 {shas}"
+    return compare_figure(curves, xlabel, ylabel=f"secret key rate ({rate_unit})", crossings=crossings,
+                          title=name, logx=use_log(xs), logy=True, note=note, size=size)

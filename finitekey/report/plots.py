@@ -49,6 +49,7 @@ __all__ = [
     "Curve",
     "axis_label",
     "blocksize_figure",
+    "compare_figure",
     "figure_bytes",
     "ledger_figure",
     "rate_figure",
@@ -213,6 +214,9 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
     """Draw the curves; points of a finite curve with no key are marked x on the horizontal axis."""
     finite = 0
     reasons: list = []
+    nbounds = sum(1 for c in curves if c.kind == "bound")
+    bound_styles = ((0, (1, 2)), (0, (5, 2, 1, 2)), (0, (2, 4)))
+    drawn_bounds = 0
     for c in curves:
         xs, ys = _points(c, logy, logx)
         nk = _no_key_x(c, logx)
@@ -232,10 +236,13 @@ def _draw_curves(ax, curves: Sequence[Curve], logx: bool, logy: bool) -> None:
         elif c.kind == "asymptotic":
             ax.plot(xs, ys, color="#2b3a55", linestyle=(0, (6, 3)), linewidth=1.5, label=c.label, zorder=2)
         elif c.kind == "bound":
-            ax.plot(xs, ys, color="#8a8478", linestyle=(0, (1, 2)), linewidth=1.6, label=c.label, zorder=1)
-            top = max(ys) * (2 if logy else 1.2)
-            ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.12, linewidth=0, zorder=0,
-                            label="shaded: above the bound, out of reach without repeaters")
+            ax.plot(xs, ys, color="#8a8478", linestyle=bound_styles[drawn_bounds % len(bound_styles)],
+                    linewidth=1.6, label=c.label, zorder=1)
+            drawn_bounds += 1
+            if nbounds == 1:  # several bounds (links of different loss) are told apart by line style, unshaded
+                top = max(ys) * (2 if logy else 1.2)
+                ax.fill_between(xs, ys, [top] * len(ys), color="#8a8478", alpha=0.12, linewidth=0, zorder=0,
+                                label="shaded: above the bound, out of reach without repeaters")
         else:
             raise InputError("curve.kind", c.kind, "one of: finite, asymptotic, bound")
     if reasons:
@@ -296,6 +303,45 @@ def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key 
         if ylabel.endswith("(bit/pulse)") and any(c.kind == "bound" for c in drawable):
             ylabel = ylabel.replace("(bit/pulse)", "(bit per pulse / channel use)")
         _draw_curves(ax, [c for c in curves if c in drawable or _no_key_x(c, logx)], logx, logy)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        _finish(ax, fig, title, note)
+    return fig
+
+
+def compare_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key rate (bit/pulse)",
+                   crossings: Sequence[dict] = (), title: str = "", logx: bool = False, logy: bool = True,
+                   note: str = "", size=None) -> Figure:
+    """Key rate of several scenarios against one field, with the repeaterless bound and where they cross it.
+
+    ``curves`` holds one ``"finite"`` curve per scenario and any ``"bound"`` curves (see :func:`rate_figure`);
+    each of ``crossings`` (``label``: legend text, ``x``) is drawn as a thin vertical dash-dot line.
+
+    Raises
+    ------
+    InputError
+        If no scenario has a point that can be drawn.
+    """
+    with rc_context(_style_for(size)):
+        fig = _new_figure(size, stamp=bool(note))
+        ax = fig.add_subplot()
+        drawable = [c for c in curves if _points(c, logy, logx)[0]]
+        if not any(c.kind == "finite" for c in drawable):
+            reasons = sorted({r.removeprefix("no key: ") for c in curves for r in c.meta.get("no_key_reasons", ())})
+            raise InputError("plot", "no positive key rate at any point of any scenario"
+                             + (" (no key: " + "; ".join(reasons) + ")" if reasons else ""),
+                             "a comparison with at least one positive key rate (try a shorter distance or a larger "
+                             "block)")
+        if ylabel.endswith("(bit/pulse)") and any(c.kind == "bound" for c in drawable):
+            ylabel = ylabel.replace("(bit/pulse)", "(bit per pulse / channel use)")
+        _draw_curves(ax, [c for c in curves if c in drawable or _no_key_x(c, logx)], logx, logy)
+        styles = ((0, (5, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)), (0, (8, 2, 1, 2)))
+        for k, cr in enumerate(crossings):
+            x = float(cr["x"])
+            if not math.isfinite(x) or (logx and x <= 0):
+                continue
+            ax.axvline(x, color="#2b3a55", linestyle=styles[k % len(styles)], linewidth=1.0, zorder=2,
+                       gid="bound-crossing", label=cr["label"])
         ax.set_xlabel(xlabel)
         ax.set_ylabel(ylabel)
         _finish(ax, fig, title, note)

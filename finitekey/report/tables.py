@@ -129,6 +129,7 @@ def default_columns(table) -> list:
                else "secret_key_rate_per_detection")
     if any(r.get("secret_key_rate_bps") is not None for r in table.rows):
         out.append("secret_key_rate_bps")
+    out += list(getattr(table, "extra_default_columns", ()))  # a comparison: the repeaterless bound
     out.append("eps_total")
     if any(not (r.get("status") or {"key": True}).get("key", True) for r in table.rows if not r.get("error")):
         out.insert(len(table.fields) + (1 if table.mode == "blocksize" else 0), "status")  # only when a row has none
@@ -300,7 +301,7 @@ def table_view(table, columns=None, pivot=None, human: bool = True) -> TableView
     human : bool
         Whether the view is for a human format (affects only the default columns).
     """
-    notes = _error_notes(table) + _warning_notes(table)
+    notes = _error_notes(table) + _warning_notes(table) + list(getattr(table, "notes", ()))  # a comparison's own
     if pivot is not None:
         if columns is not None:
             raise InputError("--columns", columns, "no --columns with --pivot (the pivot's cells are one quantity)")
