@@ -153,12 +153,14 @@ def _design_at(sc: DescribedScenario, N: int, kp: float, gamma: float, evals: in
     status = KEY if ell > 0 else design_no_key(
         res.status, NoKeyReason.THRESHOLD_EXCEEDED if r_inf <= 0 else NoKeyReason.NO_POSITIVE_DESIGN)
     diag = {"float_evaluations": evals, "solver_gap": res.terms.get("solver_gap"),
-            "solver_iterations": res.estimates.get("solver_iterations")}
+            "solver_iterations": res.estimates.get("solver_iterations"),
+            "asymptotic_rate_per_round": r_inf}
     data = {s: dict(v) if isinstance(v, dict) else v for s, v in sc.data.items()}
     data["budget"]["rounds"] = N
-    notes = ("rates are per round (signal sent); secure against collective attacks only (i.i.d. rounds)",)
+    notes = ("rates are per round (signal sent); secure against collective attacks only (i.i.d. rounds)",
+             f"asymptotic rate at these setting probabilities: {r_inf:.6g} bits per round")
     return DesignResult(PROTOCOL_NAME, params, res, per_round, bps, counts, fill, data,
-                        secret_key_rate_per_detection=None, asymptotic_rate_per_detection=r_inf,
+                        secret_key_rate_per_detection=None, asymptotic_rate_per_detection=None,
                         diagnostics={k: v for k, v in diag.items() if v is not None}, status=status, notes=notes)
 
 
