@@ -206,9 +206,6 @@ def test_six_state_one_way_rate_and_threshold():
         assert (r > 0) == (q < 0.1262)
 
 
-@pytest.mark.xfail(raises=ComputationError, strict=True,
-                   reason="finitekey.numerical certificate at 4ec1903 (exact factors): eigh of a matrix with NaN for "
-                          "Bob's space with a vacuum vector; reported to the solver's owner; passes with 183999d")
 def test_detector_mismatch_costs_key_and_more_with_more_mismatch():
     # Issue 11's physical check: unequal detector efficiencies leak information to Eve; the matched case
     # (both 0.9) gives the most key, and the loss grows with the mismatch (no outside number).
