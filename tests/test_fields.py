@@ -8,6 +8,7 @@ behaviour (common practice, no source).
 
 import copy
 import glob
+import importlib
 import json
 import math
 import os
@@ -24,7 +25,7 @@ from finitekey.protocols import bb84, decoy_bb84
 from finitekey.protocols._spec import markdown_table
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-PROTOCOLS = ("bb84", "decoy-bb84")
+PROTOCOLS = ("bb84", "decoy-bb84", "mdi-bb84")
 
 
 def _example_blocks():
@@ -65,7 +66,7 @@ def test_fields_lists_every_scenario_and_block_field(name, capsys):
     listed = [r["field"] for r in doc["scenario"]]
     assert set(proto.scenario_fields()) <= set(listed)
     assert set(listed) - set(proto.scenario_fields()) <= {"protocol.name"}
-    module = bb84 if name == "bb84" else decoy_bb84
+    module = importlib.import_module("finitekey.protocols." + name.replace("-", "_"))
     assert [r["field"] for r in doc["block"]] == list(module.block._BLOCK_FIELDS)
     assert "caution" in doc
     for r in doc["scenario"] + doc["block"]:
@@ -132,7 +133,8 @@ def _base_block(name, field):
             del d["ec_leak_bits"]
             d.update(ec_efficiency=1.1, key_qber=0.02)
     else:
-        with open(os.path.join(ROOT, "examples", "blocks", "decoy_block.json")) as fh:
+        stem = "mdi_block" if name == "mdi-bb84" else "decoy_block"
+        with open(os.path.join(ROOT, "examples", "blocks", f"{stem}.json")) as fh:
             d = json.load(fh)
     if field in ("eps_total", "eps_cor_share"):
         del d["eps_sec"], d["eps_cor"]

@@ -79,6 +79,7 @@ _DECOY4 = {"protocol": "decoy-bb84", "intensities": [0.6, 0.2, 0.05, 0.0002],
            "key_basis": {"detections": [400000, 30000, 5000, 40], "errors": [8000, 900, 300, 20]},
            "test_basis": {"detections": [100000, 7000, 1200, 10], "errors": [2000, 250, 80, 5]},
            "ec_leak_bits": 60000, "eps_sec": 1e-9, "eps_cor": 1e-15}
+_MDI = json.loads((ROOT / "examples" / "blocks" / "mdi_block.json").read_text())
 _BB84 = {"protocol": "bb84", "key_bits": 10**6, "test_bits": 5 * 10**4, "test_errors": 1250,
          "ec_leak_bits": 190000, "eps_sec": 1e-10, "eps_cor": 1e-15}
 
@@ -86,6 +87,9 @@ _TF = json.loads((ROOT / "examples" / "blocks" / "tf_sns_block.json").read_text(
 _DESCRIBED = json.loads((ROOT / "examples" / "blocks" / "described_block.json").read_text())
 
 SAMPLES = {
+    "mdi-bb84": [(_MDI, "exact"), (_MDI, "chernoff"), (_MDI, "hoeffding"),
+                 ({**_MDI, "epsilon_split": {"count_estimation": 0.6, "single_photon_smoothing": 0.3,
+                                             "chain_rule": 0.05, "privacy_amplification": 0.05}}, "exact")],
     "bb84": [(_BB84, "exact"), (_BB84, "serfling"),
              ({**_BB84, "epsilon_split": {"smoothing": 0.9, "privacy_amplification": 0.1}}, "exact")],
     "decoy-bb84": [(_DECOY3, "exact"), (_DECOY3, "chernoff"), (_DECOY3, "hoeffding"),
@@ -118,6 +122,11 @@ def _context(name: str, block, statistics: str) -> tuple:
     if name == "described":
         from finitekey.protocols.described.analysis import interval_count
         return "all", {"K": interval_count(block.description)}
+    if name == "mdi-bb84":
+        from finitekey.protocols.mdi_bb84 import analysis as MA
+        kind = MA.analysis_kind(block)
+        return ("joint" if block.joint_constraints else kind,
+                {"N_c": MA.count_events(kind, *block.shape), "N_j": MA.joint_events(*block.shape)})
     return "all", {}
 
 

@@ -25,3 +25,4 @@ from . import bb84  # noqa: E402,F401  (each import registers its protocol)
 from . import decoy_bb84  # noqa: E402,F401
 from . import tf_sns  # noqa: E402,F401
 from . import described  # noqa: E402,F401
+from . import mdi_bb84  # noqa: E402,F401

@@ -138,6 +138,8 @@ FIXED_PARAMETER_FIELDS = {
     "tf-sns": (("protocol.signal_intensity", "protocol.sending_probability", "protocol.decoy_intensities",
                 "protocol.decoy_probabilities", "protocol.key_window_probability"), ()),
     "described": (("design.key_probability", "design.test_fraction"), ()),
+    "mdi-bb84": (("protocol.alice_intensities", "protocol.alice_intensity_probabilities", "protocol.bob_intensities",
+                  "protocol.bob_intensity_probabilities", "protocol.key_basis_probability"), ()),
 }
 
 

@@ -575,7 +575,7 @@ def parse_scenario(data: dict) -> MdiScenario:
     weakest = float(_SPEC["protocol.weakest_intensity"].check(pr.get("weakest_intensity", 2e-4)))
     if mu is not None:
         weakest = min(mu[0][-1], mu[1][-1])
-    ln = data["link"]
+    ln = {k: _SPEC[f"link.{k}"].check(v) for k, v in data["link"].items()}   # errors name each arm's field
     loss = ln["fiber_loss_db_per_km"]
     alice = Arm(ln["alice_distance_km"], loss, ln.get("alice_extra_loss_db", 0.0))
     bob = Arm(ln["bob_distance_km"], loss, ln.get("bob_extra_loss_db", 0.0))
