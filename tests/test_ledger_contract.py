@@ -80,6 +80,14 @@ _DECOY4 = {"protocol": "decoy-bb84", "intensities": [0.6, 0.2, 0.05, 0.0002],
            "test_basis": {"detections": [100000, 7000, 1200, 10], "errors": [2000, 250, 80, 5]},
            "ec_leak_bits": 60000, "eps_sec": 1e-9, "eps_cor": 1e-15}
 _MDI = json.loads((ROOT / "examples" / "blocks" / "mdi_block.json").read_text())
+# Bob without his middle intensity (the rounds where he chose it left out): the linear-programme path
+_MDI32 = {**_MDI, "bob_intensities": [_MDI["bob_intensities"][0], _MDI["bob_intensities"][2]],
+          "bob_intensity_probabilities": [_MDI["bob_intensity_probabilities"][0] /
+                                          (1 - _MDI["bob_intensity_probabilities"][1]),
+                                          _MDI["bob_intensity_probabilities"][2] /
+                                          (1 - _MDI["bob_intensity_probabilities"][1])],
+          **{b: {k: [[r[0], r[2]] for r in _MDI[b][k]] for k in ("detections", "errors")}
+             for b in ("key_basis", "test_basis")}}
 _BB84 = {"protocol": "bb84", "key_bits": 10**6, "test_bits": 5 * 10**4, "test_errors": 1250,
          "ec_leak_bits": 190000, "eps_sec": 1e-10, "eps_cor": 1e-15}
 
@@ -89,7 +97,8 @@ _DESCRIBED = json.loads((ROOT / "examples" / "blocks" / "described_block.json").
 SAMPLES = {
     "mdi-bb84": [(_MDI, "exact"), (_MDI, "chernoff"), (_MDI, "hoeffding"),
                  ({**_MDI, "epsilon_split": {"count_estimation": 0.6, "single_photon_smoothing": 0.3,
-                                             "chain_rule": 0.05, "privacy_amplification": 0.05}}, "exact")],
+                                             "chain_rule": 0.05, "privacy_amplification": 0.05}}, "exact"),
+                 (_MDI32, "exact"), ({**_MDI, "joint_constraints": True}, "chernoff")],
     "bb84": [(_BB84, "exact"), (_BB84, "serfling"),
              ({**_BB84, "epsilon_split": {"smoothing": 0.9, "privacy_amplification": 0.1}}, "exact")],
     "decoy-bb84": [(_DECOY3, "exact"), (_DECOY3, "chernoff"), (_DECOY3, "hoeffding"),

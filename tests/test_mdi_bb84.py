@@ -217,7 +217,7 @@ BAD_BLOCKS = [
     (("key_basis", "detections", 1), [10, 20], r"key_basis.detections\[1\].*an intensity pair is missing"),
     (("test_basis", "errors", 0), [1, 2, 3, 4], r"test_basis.errors\[0\].*pairs that do not exist"),
     (("key_basis", "detections"), [[1, 2, 3]] * 4, r"key_basis.detections.*rows for intensities that do not exist"),
-    (("bob_intensities",), _DEL, r"bob_intensities = None.*Bob's list of intensities"),
+    (("bob_intensities",), _DEL, r"bob_intensities is missing.*Bob.s list of intensities"),
     (("alice_intensity_probabilities",), [0.5, 0.5], r"alice_intensity_probabilities.*3 probabilities"),
     (("test_basis", "errors", 1), [10**12, 0, 0], r"test_basis.errors\[1\]\[0\].*cannot exceed"),
     (("closed_by",), "quota", r"closed_by = 'quota'"),

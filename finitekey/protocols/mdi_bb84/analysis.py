@@ -275,7 +275,7 @@ def _engine_estimates(block: MdiBlock, method: str, eps_c: float, eps_j: float |
         flat_hi = [x for row in hi for x in row]
         joint = _joint_rows(block, table, method, eps_j, prec) if eps_j is not None else ()
         total = sum(c for row in table for c in row)
-        b = decoy.bound(senders, flat_lo, flat_hi, (1, 1), sense, total=total, joint=joint)
+        b = decoy.bound(senders, flat_lo, flat_hi, (1, 1), sense, total=total, method="lp", joint=joint)
         out[name] = floor_arb(b) if sense == "lower" else ceil_arb(b)
     return out
 

@@ -180,6 +180,10 @@ class RelayModel:
         channel of the repeaterless bound."""
         return self.alice.transmittance * self.bob.transmittance
 
+    def fibre_transmittance(self) -> float:
+        """:attr:`end_to_end_transmittance` (the hook the report's repeaterless-bound curve calls)."""
+        return self.end_to_end_transmittance
+
     def with_arms(self, alice_km: float, bob_km: float) -> "RelayModel":
         """Copy with other arm lengths (validated)."""
         return replace(self, alice=replace(self.alice, distance_km=alice_km),
@@ -456,6 +460,11 @@ class MdiScenario:
     security: tuple | None = None
 
     size_kind = "pulses"
+
+    @property
+    def link(self) -> RelayModel:
+        """The relay model, under the name the report's reference curves look for."""
+        return self.model
 
     def with_pulses(self, pulses: float) -> "MdiScenario":
         """Copy with a block of ``pulses`` pulse pairs."""
