@@ -32,3 +32,10 @@ fk table coastal_relay_tf.toml --vary link.distance_km=300:500:100 --vary block.
    -o coastal_relay_tf_table.md
 fk plot coastal_relay_tf.toml --vary link.distance_km=100:600:50 --vary block.windows=1e12,1e14 \
    -o coastal_relay_tf_rate.png
+
+# 5. MDI relay between two campuses (untrusted relay in a third party's exchange; arms of different length)
+python make_mdi_block.py
+fk table campus_relay_mdi.toml --vary link.bob_distance_km=10:50:20 --vary block.pulses=1e11,1e12 \
+   -o campus_relay_mdi_table.md
+fk plot campus_relay_mdi.toml --vary link.bob_distance_km=0:80:10 --vary block.pulses=1e11,1e13 \
+   -o campus_relay_mdi_rate.png
