@@ -35,7 +35,7 @@ fk plot coastal_relay_tf.toml --vary link.distance_km=100:600:50 --vary block.wi
 
 # 5. MDI relay between two campuses (untrusted relay in a third party's exchange; arms of different length)
 python make_mdi_block.py
-fk table campus_relay_mdi.toml --vary link.bob_distance_km=10:50:20 --vary block.pulses=1e11,1e12 \
+fk table campus_relay_mdi.toml --vary link.distance_km=30:90:30 --vary block.pulses=1e11,1e12 \
    -o campus_relay_mdi_table.md
-fk plot campus_relay_mdi.toml --vary link.bob_distance_km=0:80:10 --vary block.pulses=1e11,1e13 \
+fk plot campus_relay_mdi.toml --vary link.distance_km=0:140:20 --vary block.pulses=1e11,1e13 \
    -o campus_relay_mdi_rate.png

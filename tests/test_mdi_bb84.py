@@ -156,7 +156,7 @@ def test_one_arm_of_zero_length_and_an_ideal_relay_give_no_more_than_decoy_bb84(
     asymptotic) stays below decoy-state BB84 over the same loss with the same block size."""
     for km in (20.0, 60.0):
         mdi = S.with_field(S.with_field(S.with_field(S.with_field(S.with_field(
-            S.default_scenario(), "link.alice_distance_km", km), "link.bob_distance_km", 0.0),
+            S.default_scenario(), "link.distance_km", km), "link.alice_fraction", 1.0),
             "detector.efficiency", 1.0), "detector.misalignment_error", 0.0), "block.pulses", 1e10)
         mdi = S.with_field(mdi, "detector.dark_count_probability", 1e-9)
         dec = DB.default_scenario()

@@ -128,6 +128,9 @@ def test_scenario_round_trip_and_one_sided_intensities_refused():
     d["protocol"]["bob_intensities"] = [0.5, 0.1]
     with pytest.raises(InputError, match=r"protocol.bob_intensities.*3 intensities"):
         S.parse_scenario(d)
-    assert S.with_field(sc, "link.bob_distance_km", 40.0).model.bob.distance_km == 40.0
+    moved = S.with_field(S.with_field(sc, "link.distance_km", 40.0), "link.alice_fraction", 0.25)
+    assert (moved.model.alice.distance_km, moved.model.bob.distance_km) == (10.0, 30.0)
+    assert S.parse_scenario(moved.as_dict()) == moved
+    assert moved.at_total_distance(80.0).model.bob.distance_km == 60.0
     with pytest.raises(InputError, match="protocol.encoding"):
         S.with_field(sc, "protocol.encoding", "phase")

@@ -20,7 +20,7 @@ from .._registry import register
 from .._result import BlockTarget, DesignResult, KeyLengthResult, ReachResult
 from .._spec import protocol_schema, table_rows
 from .._fields import SECURITY_SCHEMA_RULE
-from . import analysis
+from . import analysis, design
 from .analysis import DEFAULT_STATISTICS, STATISTICS, key_length, key_length_batch, term_specs
 from .block import BLOCK_SPECS, MdiBlock, parse_block
 from .scenario import (PROTOCOL_NAME, SCENARIO_SCHEMA_RULES, SCENARIO_SPECS, MdiScenario, RelayModel,
@@ -71,8 +71,7 @@ class MdiBB84:
         DesignResult
             See :func:`.design.design`; runs with one BLAS thread.
         """
-        from . import design as _design   # the design sits above the analysis; imported on use
-        return _design.design(scenario, analysis.check_statistics(statistics))
+        return design.design(scenario, analysis.check_statistics(statistics))
 
     @with_one_blas_thread
     def blocksize(self, scenario: MdiScenario, target: BlockTarget, statistics: str | None = None,
@@ -84,8 +83,7 @@ class MdiBB84:
         BlockSizeResult
             See :func:`.design.blocksize`.
         """
-        from . import design as _design
-        return _design.blocksize(scenario, target, analysis.check_statistics(statistics), unit=unit)
+        return design.blocksize(scenario, target, analysis.check_statistics(statistics), unit=unit)
 
     @with_one_blas_thread
     def reach(self, scenario: MdiScenario, statistics: str | None = None) -> ReachResult:
@@ -96,8 +94,7 @@ class MdiBB84:
         ReachResult
             See :func:`.design.reach`.
         """
-        from . import design as _design
-        return _design.reach(scenario, analysis.check_statistics(statistics))
+        return design.reach(scenario, analysis.check_statistics(statistics))
 
     def asymptotic_rate_per_pulse(self, scenario: MdiScenario) -> float:
         """Infinite-decoy asymptotic rate per pulse pair with no sifting loss, optimised over the signals.

@@ -390,10 +390,10 @@ SCENARIO_SPECS = (
               "(default: optimised)", domain=PROBABILITY),
     FieldSpec("protocol.weakest_intensity", "number", "mean photon number of both sides' weakest (fixed) "
               "intensity", unit="photons", domain=Domain(0.0, 1.0), default=2e-4),
-    _device("link.alice_distance_km", "fibre length from Alice to the relay", "km", required="yes",
-            domain_of="link.distance_km"),
-    _device("link.bob_distance_km", "fibre length from Bob to the relay", "km", required="yes",
-            domain_of="link.distance_km"),
+    _device("link.distance_km", "fibre length from Alice to Bob through the relay (both arms)", "km",
+            required="yes"),
+    FieldSpec("link.alice_fraction", "number", "share of that fibre on Alice's side of the relay (0.5: the relay in "
+              "the middle)", domain=Domain(0.0, 1.0), default=0.5),
     _device("link.fiber_loss_db_per_km", "fibre attenuation (both arms)", "dB/km", required="yes"),
     _device("link.alice_extra_loss_db", "loss of Alice's arm independent of length", "dB", 0.0,
             domain_of="link.extra_loss_db"),
@@ -444,6 +444,8 @@ class MdiScenario:
     label : str or None
     security : tuple or None
         The ``[security]`` section as given.
+    alice_fraction : float
+        Share of the Alice-Bob fibre on Alice's side (kept for a total length of 0).
     """
 
     model: RelayModel
@@ -458,6 +460,7 @@ class MdiScenario:
     weakest_intensity: float = 2e-4
     label: str | None = None
     security: tuple | None = None
+    alice_fraction: float = 0.5
 
     size_kind = "pulses"
 
@@ -471,11 +474,9 @@ class MdiScenario:
         return replace(self, pulses=float(pulses))
 
     def at_total_distance(self, total_km: float) -> "MdiScenario":
-        """Copy with the Alice-Bob fibre length ``total_km``, the relay at the same fraction of the way (the
-        middle when both arms are 0)."""
-        a, b = self.model.alice.distance_km, self.model.bob.distance_km
-        share = 0.5 if a + b == 0 else a / (a + b)
-        return replace(self, model=self.model.with_arms(total_km * share, total_km * (1 - share)))
+        """Copy with the Alice-Bob fibre length ``total_km``, the relay at the same fraction of the way."""
+        share = self.alice_fraction
+        return replace(self, model=self.model.with_arms(total_km * share, total_km - total_km * share))
 
     def as_dict(self) -> dict:
         """JSON-ready mapping in the scenario-file layout (``parse_scenario`` reads it back).
@@ -497,8 +498,8 @@ class MdiScenario:
         if self.key_basis_probability is not None:
             proto["key_basis_probability"] = self.key_basis_probability
         out = {"protocol": proto,
-               "link": {"alice_distance_km": m.alice.distance_km, "bob_distance_km": m.bob.distance_km,
-                        "fiber_loss_db_per_km": m.alice.fiber_loss_db_per_km,
+               "link": {"distance_km": m.alice.distance_km + m.bob.distance_km,
+                        "alice_fraction": self.alice_fraction, "fiber_loss_db_per_km": m.alice.fiber_loss_db_per_km,
                         "alice_extra_loss_db": m.alice.extra_loss_db, "bob_extra_loss_db": m.bob.extra_loss_db},
                "detector": {"efficiency": m.efficiency, "dark_count_probability": m.dark_count_probability,
                             "misalignment_error": m.misalignment_error},
@@ -584,10 +585,11 @@ def parse_scenario(data: dict) -> MdiScenario:
     weakest = float(_SPEC["protocol.weakest_intensity"].check(pr.get("weakest_intensity", 2e-4)))
     if mu is not None:
         weakest = min(mu[0][-1], mu[1][-1])
-    ln = {k: _SPEC[f"link.{k}"].check(v) for k, v in data["link"].items()}   # errors name each arm's field
-    loss = ln["fiber_loss_db_per_km"]
-    alice = Arm(ln["alice_distance_km"], loss, ln.get("alice_extra_loss_db", 0.0))
-    bob = Arm(ln["bob_distance_km"], loss, ln.get("bob_extra_loss_db", 0.0))
+    ln = {k: _SPEC[f"link.{k}"].check(v) for k, v in data["link"].items()}   # errors name each field
+    loss, total = ln["fiber_loss_db_per_km"], float(ln["distance_km"])
+    share = float(ln.get("alice_fraction", 0.5))
+    alice = Arm(total * share, loss, ln.get("alice_extra_loss_db", 0.0))
+    bob = Arm(total - total * share, loss, ln.get("bob_extra_loss_db", 0.0))
     dt = data["detector"]
     model = RelayModel(alice, bob, dt["efficiency"], dt["dark_count_probability"],
                        dt.get("misalignment_error", 0.0), encoding,
@@ -596,7 +598,7 @@ def parse_scenario(data: dict) -> MdiScenario:
     eps_sec, eps_cor = security_targets(data["security"], "security.")
     f = float(_SPEC["reconciliation.efficiency"].check(data["reconciliation"]["efficiency"]))
     return MdiScenario(model, pulses, eps_sec, eps_cor, f, k, mu, probs, qz, weakest, label,
-                       tuple(data["security"].items()))
+                       tuple(data["security"].items()), share)
 
 
 def default_scenario() -> MdiScenario:
@@ -604,7 +606,7 @@ def default_scenario() -> MdiScenario:
     (common practice, no source)."""
     return parse_scenario({
         "protocol": {"name": PROTOCOL_NAME, "encoding": "polarisation", "intensity_count": 3},
-        "link": {"alice_distance_km": 25.0, "bob_distance_km": 25.0, "fiber_loss_db_per_km": 0.2},
+        "link": {"distance_km": 50.0, "alice_fraction": 0.5, "fiber_loss_db_per_km": 0.2},
         "detector": {"efficiency": 0.6, "dark_count_probability": 1e-7, "misalignment_error": 0.01},
         "source": {"repetition_rate_hz": 1e9},
         "block": {"pulses": 1e12},
