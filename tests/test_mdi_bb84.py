@@ -275,7 +275,7 @@ def test_engine_linear_programme_is_never_looser_than_the_closed_form():
     from flint import arb
 
     from finitekey import decoy
-    from finitekey.protocols._decoy_analysis import arb_exp
+    from finitekey.decoy.rounding import arb_exp
 
     b = M.parse_block(BLOCK)
     senders = tuple(decoy.Sender(m, p) for m, p in zip(b.intensities, b.intensity_probabilities))
