@@ -110,6 +110,13 @@ def block_ledger(block: TFBlock) -> Ledger:
     """The block's ledger: eps_sec split by ``block.epsilon_split`` or the default shares."""
     led = allocate(block.eps_sec, block.eps_cor, term_specs(), block.epsilon_split)
     led.failure_probability("single_photon_smoothing")   # its square must be a positive float
+    # The chain rule doubles the smoothing of one slot; we put the single-photon term there (note, section 5).
+    # With eps_ch <= eps_1 the ledger also covers the other reading, as in decoy-bb84 and mdi-bb84.
+    if led.smoothing("chain_rule") > led.smoothing("single_photon_smoothing"):
+        fr = led.fractions()
+        raise InputError("epsilon_split.chain_rule", fr["chain_rule"], "a share at most half the "
+                         f"single_photon_smoothing share ({fr['single_photon_smoothing']:.6g}): the chain rule's "
+                         "epsilon may not exceed the single-photon smoothing")
     return led
 
 

@@ -1,0 +1,36 @@
+"""Checks added by an independent review of the relay protocols (mdi-bb84, tf-sns); sources beside each."""
+
+from __future__ import annotations
+
+import json
+import pathlib
+
+import pytest
+
+from finitekey.errors import InputError
+
+ROOT = pathlib.Path(__file__).resolve().parents[1]
+
+
+def _tf_block(**changes):
+    from finitekey.protocols.tf_sns import block as B
+    data = json.loads((ROOT / "examples" / "blocks" / "tf_sns_block.json").read_text())
+    data.update(changes)
+    return B.parse_block(data)
+
+
+def test_tf_sns_refuses_a_split_giving_the_chain_rule_more_than_the_single_photon_smoothing():
+    """The chain rule H^{a+2b}(AB|C) >= H^b(A|BC) + H(B|C) - log2(2/a^2) (Vitanov, Dupuis, Tomamichel, Renner
+    2013, in the form Lim et al. 2014 (B1)-(B3) apply it; decoy-bb84 note section 7) doubles one slot; the
+    ledger charges the single-photon smoothing twice.  Under the other reading (the chain rule's own
+    parameter doubled) the charge 2 eps_ch + 4 eps_1 covers the need 4 eps_ch + 2 eps_1 only while
+    eps_ch <= eps_1, so decoy-bb84 and mdi-bb84 refuse larger chain-rule shares; tf-sns must too."""
+    from finitekey.protocols.tf_sns import analysis as AN
+    split = {"count_estimation": 0.4, "single_photon_smoothing": 0.1, "chain_rule": 0.45,
+             "privacy_amplification": 0.05}
+    blk = _tf_block(epsilon_split=split)
+    with pytest.raises(InputError) as exc:
+        AN.key_length(blk)
+    assert "chain_rule" in str(exc.value)
+    # the default split (eps_ch = eps_1) stays accepted
+    assert AN.key_length(_tf_block()).secret_key_length > 0
