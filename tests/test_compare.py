@@ -122,7 +122,7 @@ def _stub_rows(monkeypatch, rates):
                 "secret_key_length": int(rate * 1e10) if key else 0, "secret_key_rate_per_pulse": rate or 0.0,
                 "secret_key_rate_per_detection": None, "secret_key_rate_bps": None, "parameters": {},
                 "eps_total": 1e-10, "eps_sec": 1e-10, "eps_cor": 1e-15, "block_fill_time_s": None, "ledger": [],
-                "design": {"warnings": []}}
+                "design": {"warnings": ["a default hides an effect"] if task.protocol == "decoy-bb84" else []}}
     monkeypatch.setattr(C, "evaluate_point", fake)
 
 
@@ -191,7 +191,9 @@ def test_table_notes_the_crossing_and_the_scenario_files(monkeypatch):
     assert c["scenario"] == scen[1].label and 100 <= c["x"] <= 500
     from finitekey.report.formats import to_markdown, to_text
     text = to_text(table)
-    assert "crosses the repeaterless bound" in text and str(METRO) in text and "tf-sns" in text
+    assert f"{scen[1].label}: the key rate per pulse rises above the repeaterless bound from link.distance_km" in text
+    assert str(METRO) in text and "tf-sns" in text
+    assert f"warning ({scen[0].label}): a default hides an effect" in text  # whose design the warning is about
     assert "repeaterless bound [bit/channel use]" in text
     md = to_markdown(table, pivot="link.distance_km,scenario")
     assert scen[1].label in md

@@ -396,7 +396,7 @@ def _crossings(scenarios, axes, rows) -> list:
 
 def _crossing_note(c: dict, axes) -> str:
     where = ", ".join(f"{k} = {_show(v)}" for k, v in c["fixed"].items())
-    side = "above" if c["direction"] == "above" else "below"
-    return (f"{c['scenario']}: key rate per pulse crosses the repeaterless bound ({side} it beyond) at "
-            f"{c['field']} = about {format_number(c['x'], 'real', 'text')} (interpolated between grid points {_show(c['between'][0])} "
-            f"and {_show(c['between'][1])})" + (f" at {where}" if where else ""))
+    side = "rises above" if c["direction"] == "above" else "falls below"
+    return (f"{c['scenario']}: the key rate per pulse {side} the repeaterless bound from {c['field']} = about "
+            f"{format_number(c['x'], 'real', 'text')} (interpolated between the grid points {_show(c['between'][0])} "
+            f"and {_show(c['between'][1])})" + (f", at {where}" if where else ""))

@@ -262,11 +262,14 @@ def _error_notes(table) -> list:
 def _warning_notes(table) -> list:
     """One ``warning:`` line per distinct warning of the rows' designs (a default hiding an effect)."""
     seen = []
+    several = bool(getattr(table, "scenarios", ()))  # a comparison: say whose design the warning is about
     for r in table.rows:
+        who = r.get("point", {}).get("scenario") if several else None
         for w in (r.get("design") or {}).get("warnings", ()):
+            w = f"warning ({who}): {w}" if who else f"warning: {w}"
             if w not in seen:
                 seen.append(w)
-    return ["warning: " + w for w in seen]
+    return seen
 
 
 def _status_notes(table) -> list:
