@@ -136,8 +136,8 @@ def test_bound_equals_minus_log2_one_minus_eta_at_every_point(monkeypatch):
     metro, tf = (tomllib.loads(p.read_text()) for p in (METRO, TF))
     loss_metro = np.array([metro["link"]["fiber_loss_db_per_km"] * x + metro["link"].get("extra_loss_db", 0.0)
                            for x in xs])
-    loss_tf = np.array([tf["link"]["fiber_loss_db_per_km"] * x + tf["link"]["extra_loss_a_db"]
-                        + tf["link"]["extra_loss_b_db"] for x in xs])
+    loss_tf = np.array([tf["link"]["fiber_loss_db_per_km"] * x + tf["link"]["alice_extra_loss_db"]
+                        + tf["link"]["bob_extra_loss_db"] for x in xs])
     for label, loss in ((scen[0].label, loss_metro), (scen[1].label, loss_tf)):
         eta = 10.0 ** (-loss / 10.0)
         # -log2(1 - eta) in numpy; log1p because 1 - eta cancels for eta ~ 1e-8 (plain np.log2(1 - eta) is

@@ -229,7 +229,7 @@ def test_missing_block_field_names_it():
 
 
 @pytest.mark.parametrize("section,key,value,field", [
-    ("link", "arm_a_fraction", 1.5, "link.arm_a_fraction"),
+    ("link", "alice_fraction", 1.5, "link.alice_fraction"),
     ("phase", "drift_std_rad", -0.1, "phase.drift_std_rad"),
     ("phase", "acceptance_width_rad", 0.0, "phase.acceptance_width_rad"),
     ("protocol", "decoy_intensities", [0.2, 0.2], "protocol.decoy_intensities[1]"),

@@ -33,7 +33,7 @@ def _one_click_direct(link, mu_a, mu_b, phases):
 
 def test_random_phase_click_probability_matches_a_direct_phase_average():
     """Bessel closed form against a 200000-point average over the relative phase (numerical integration)."""
-    link = _link(arm_a_fraction=0.3)
+    link = _link(alice_fraction=0.3)
     ph = np.linspace(0, 2 * np.pi, 200001)[:-1]
     for mu_a, mu_b in ((0.3, 0.2), (0.5, 0.0), (0.0, 0.0), (1.2, 0.9)):
         left, right = _one_click_direct(link, mu_a, mu_b, ph)
@@ -89,7 +89,7 @@ def test_never_exceeds_the_single_middle_node_bound(fraction):
     """Repeater-chain capacity with one middle node, min over the arms of -log2(1 - eta_arm) (Pirandola, Commun.
     Phys. 2, 51 (2019); symmetric: -log2(1 - sqrt(eta_total))), on ideal devices, where the rate is highest."""
     for d in (1.0, 20.0, 100.0, 300.0, 600.0):
-        link = _link(distance_km=d, arm_a_fraction=fraction, dark_count_probability=0.0, misalignment_error=0.0,
+        link = _link(distance_km=d, alice_fraction=fraction, dark_count_probability=0.0, misalignment_error=0.0,
                      phase_drift_std_rad=0.0, efficiency=1.0)
         assert _rate(link) <= S.relay_bound(link)
     sym = _link(distance_km=200.0, efficiency=1.0)

@@ -232,7 +232,7 @@ def blocksize(scenario: TFScenario, target: BlockTarget, statistics: str | None 
 
 def reach(scenario: TFScenario, statistics: str | None = None, tolerance_km: float = 1.0,
           max_km: float = 1000.0) -> ReachResult:
-    """Largest total distance with a positive certified key (the arm split ``link.arm_a_fraction`` kept)."""
+    """Largest total distance with a positive certified key (the arm split ``link.alice_fraction`` kept)."""
     method = AN._check_statistics(statistics)
     if not scenario.link.fiber_loss_db_per_km > 0:
         raise InputError("link.fiber_loss_db_per_km", scenario.link.fiber_loss_db_per_km,

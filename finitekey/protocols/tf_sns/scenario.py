@@ -81,10 +81,10 @@ class TwinFieldLink:
     ----------
     distance_km : float
         Total fibre length between Alice and Bob (both arms), >= 0.
-    arm_a_fraction : float
+    alice_fraction : float
         Share of the length on Alice's side, in [0, 1] (0.5: relay in the middle).
     fiber_loss_db_per_km : float
-    extra_loss_a_db, extra_loss_b_db : float
+    alice_extra_loss_db, bob_extra_loss_db : float
         Loss independent of length in each arm (connectors, the relay's optics).
     efficiency : float
         Detection efficiency of the relay's detectors, in (0, 1].
@@ -106,9 +106,9 @@ class TwinFieldLink:
     fiber_loss_db_per_km: float
     efficiency: float
     dark_count_probability: float
-    arm_a_fraction: float = 0.5
-    extra_loss_a_db: float = 0.0
-    extra_loss_b_db: float = 0.0
+    alice_fraction: float = 0.5
+    alice_extra_loss_db: float = 0.0
+    bob_extra_loss_db: float = 0.0
     misalignment_error: float = 0.0
     phase_drift_std_rad: float = 0.0
     acceptance_width_rad: float = math.pi / 8
@@ -116,15 +116,15 @@ class TwinFieldLink:
 
     def arms(self) -> Arms:
         """Arm transmittances including the detector efficiency."""
-        la = self.arm_a_fraction * self.distance_km
+        la = self.alice_fraction * self.distance_km
         lb = self.distance_km - la
-        a = self.efficiency * 10.0 ** (-(self.fiber_loss_db_per_km * la + self.extra_loss_a_db) / 10.0)
-        b = self.efficiency * 10.0 ** (-(self.fiber_loss_db_per_km * lb + self.extra_loss_b_db) / 10.0)
+        a = self.efficiency * 10.0 ** (-(self.fiber_loss_db_per_km * la + self.alice_extra_loss_db) / 10.0)
+        b = self.efficiency * 10.0 ** (-(self.fiber_loss_db_per_km * lb + self.bob_extra_loss_db) / 10.0)
         return Arms(a, b)
 
     def fibre_transmittance(self) -> float:
         """End-to-end fibre transmittance Alice -> Bob (both arms, extra losses, no detector)."""
-        loss = self.fiber_loss_db_per_km * self.distance_km + self.extra_loss_a_db + self.extra_loss_b_db
+        loss = self.fiber_loss_db_per_km * self.distance_km + self.alice_extra_loss_db + self.bob_extra_loss_db
         return 10.0 ** (-loss / 10.0)
 
     @property
@@ -395,12 +395,12 @@ SCENARIO_SPECS = (
          "(default: optimised)", PROBABILITY),
     _num("link.distance_km", "total fibre length Alice-relay-Bob", FIELD_DOMAINS["link.distance_km"], "km",
          required="yes"),
-    _num("link.arm_a_fraction", "share of the length on Alice's side (0.5: relay in the middle)", _FRACTION,
+    _num("link.alice_fraction", "share of the length on Alice's side (0.5: relay in the middle)", _FRACTION,
          default=0.5),
     _num("link.fiber_loss_db_per_km", "fibre attenuation", FIELD_DOMAINS["link.fiber_loss_db_per_km"], "dB/km",
          required="yes"),
-    _num("link.extra_loss_a_db", "length-independent loss of Alice's arm", _NONNEG, "dB", 0.0),
-    _num("link.extra_loss_b_db", "length-independent loss of Bob's arm", _NONNEG, "dB", 0.0),
+    _num("link.alice_extra_loss_db", "length-independent loss of Alice's arm", _NONNEG, "dB", 0.0),
+    _num("link.bob_extra_loss_db", "length-independent loss of Bob's arm", _NONNEG, "dB", 0.0),
     _num("detector.efficiency", "efficiency of the relay's detectors", FIELD_DOMAINS["detector.efficiency"],
          required="yes"),
     _num("detector.dark_count_probability", "dark count per detector per window",
@@ -481,9 +481,9 @@ class TFScenario:
         for k, v in self.fixed:
             proto[k] = list(v) if isinstance(v, tuple) else v
         out = {"protocol": proto,
-               "link": {"distance_km": ln.distance_km, "arm_a_fraction": ln.arm_a_fraction,
-                        "fiber_loss_db_per_km": ln.fiber_loss_db_per_km, "extra_loss_a_db": ln.extra_loss_a_db,
-                        "extra_loss_b_db": ln.extra_loss_b_db},
+               "link": {"distance_km": ln.distance_km, "alice_fraction": ln.alice_fraction,
+                        "fiber_loss_db_per_km": ln.fiber_loss_db_per_km, "alice_extra_loss_db": ln.alice_extra_loss_db,
+                        "bob_extra_loss_db": ln.bob_extra_loss_db},
                "detector": {"efficiency": ln.efficiency, "dark_count_probability": ln.dark_count_probability,
                             "misalignment_error": ln.misalignment_error},
                "phase": {"drift_std_rad": ln.phase_drift_std_rad, "acceptance_width_rad": ln.acceptance_width_rad},
@@ -566,8 +566,8 @@ def parse_scenario(data: dict) -> TFScenario:
     link = TwinFieldLink(
         distance_km=get("link", "distance_km"), fiber_loss_db_per_km=get("link", "fiber_loss_db_per_km"),
         efficiency=get("detector", "efficiency"), dark_count_probability=get("detector", "dark_count_probability"),
-        arm_a_fraction=get("link", "arm_a_fraction"), extra_loss_a_db=get("link", "extra_loss_a_db"),
-        extra_loss_b_db=get("link", "extra_loss_b_db"), misalignment_error=get("detector", "misalignment_error"),
+        alice_fraction=get("link", "alice_fraction"), alice_extra_loss_db=get("link", "alice_extra_loss_db"),
+        bob_extra_loss_db=get("link", "bob_extra_loss_db"), misalignment_error=get("detector", "misalignment_error"),
         phase_drift_std_rad=get("phase", "drift_std_rad"), acceptance_width_rad=get("phase", "acceptance_width_rad"),
         repetition_rate_hz=get("source", "repetition_rate_hz"))
     bl = data["block"]
