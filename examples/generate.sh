@@ -39,3 +39,10 @@ fk table campus_relay_mdi.toml --vary link.distance_km=30:90:30 --vary block.pul
    -o campus_relay_mdi_table.md
 fk plot campus_relay_mdi.toml --vary link.distance_km=0:140:20 --vary block.pulses=1e11,1e13 \
    -o campus_relay_mdi_rate.png
+
+# 6. the three protocols side by side on their own devices: decoy-state BB84 (long-haul), MDI (campus relay) and
+#    twin-field (coastal relay), each designed over one distance axis; the table sets the scenarios side by side
+#    (key rate per pulse), the figure gives one curve per file, each link's repeaterless bound and the distance
+#    from which the twin-field rate beats its bound
+fk compare longhaul_trusted_node.toml campus_relay_mdi.toml coastal_relay_tf.toml --vary link.distance_km=0:500:50 \
+   --pivot link.distance_km,scenario -o protocols_compared_table.md -o protocols_compared_rate.png

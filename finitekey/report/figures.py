@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from ..errors import FiniteKeyError, InputError
 from .formats import short_number, status_text
-from .plots import (Curve, axis_label, blocksize_figure, compare_figure, ledger_figure, rate_figure, repeaterless_bound,
+from .plots import (DEFAULT_SIZE, Curve, axis_label, blocksize_figure, compare_figure, ledger_figure, rate_figure, repeaterless_bound,
                     use_log)
 from .compare import SCENARIO_FIELD, CompareTable, channel_transmittance
 from .sweep import SweepTable, _scenario_at
@@ -256,22 +256,25 @@ def compare_plot(table: CompareTable, per_second: bool = False, title: str | Non
             status = r.get("status") or {}
             if status and not status.get("key"):
                 nk_x.append(r["point"][xf])
-                text = f"{label}: {status_text(status).removeprefix('no key: ')}"
-                if text not in nk_reasons:
-                    nk_reasons.append(text)
+                reason = status_text(status).removeprefix("no key: ").split(" (")[0].split(":")[0]
+                if reason not in nk_reasons:  # the short reason; the table's notes give the detail
+                    nk_reasons.append(reason)
                 continue
             xs.append(r["point"][xf])
             ys.append(r.get(key))
+        reasons = (f"{label}: {', '.join(nk_reasons)}",) if nk_reasons else ()
         curves.append(Curve(label, tuple(xs), tuple(ys), kind="finite",
-                            meta={"no_key_x": tuple(nk_x), "no_key_reasons": tuple(nk_reasons)}))
+                            meta={"no_key_x": tuple(nk_x), "no_key_reasons": reasons}))
         bx = tuple(r["point"][xf] for r in rows if r.get("repeaterless_bound") is not None)
         by = tuple(r["repeaterless_bound"] for r in rows if r.get("repeaterless_bound") is not None)
         if bx and not per_second:
             bounds.setdefault((bx, tuple(round(v, 12) for v in by)), (by, []))[1].append(label)
     for (bx, _), (by, labels) in bounds.items():
-        whose = "" if len(bounds) == 1 else " of the link of " + ", ".join(labels)
-        curves.append(Curve("repeaterless bound −log₂(1−η)" + whose + ", η = channel transmittance (detector "
-                            "excluded)", bx, by, kind="bound"))
+        if len(bounds) == 1:
+            text = "repeaterless bound −log₂(1−η), η = channel transmittance (detector excluded)"
+        else:  # one bound per link: short entries, the y label says "per channel use"
+            text = "repeaterless bound, link of " + ", ".join(labels)
+        curves.append(Curve(text, bx, by, kind="bound"))
     xlabel = axis_label(xf)
     unit = xlabel.rpartition(" (")[2].rstrip(")") if xlabel.endswith(")") else ""
     crossings = [] if per_second else [
@@ -280,7 +283,9 @@ def compare_plot(table: CompareTable, per_second: bool = False, title: str | Non
                                + " (interpolated)"}
         for c in table.crossings]
     xs = axes[0].values
-    name = title if title is not None else "secret key rate: " + ", ".join(s["label"] for s in table.scenarios)
+    name = title if title is not None else "secret key rate by scenario"
+    if size is None:  # the legend below the axes grows with the scenarios: a taller default figure
+        size = (DEFAULT_SIZE[0], DEFAULT_SIZE[1] + 0.45 * max(0, len(curves) - 2))
     p = table.provenance
     shas = ", ".join(i.get("input_sha256", "")[:12] for i in p.get("inputs", ()))
     note = f"finitekey {p.get('version', '')} · inputs sha256 {shas}"
