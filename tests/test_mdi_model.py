@@ -2,12 +2,12 @@
 
 Sources beside each check:
 
-* the closed-form gains and error gains of Ma and Razavi, Phys. Rev. A 86, 062319 (2012), Appendix (the same
-  forms appear in Xu, Curty, Qi, Lo, New J. Phys. 15, 113007 (2013), Appendix B), evaluated with mpmath at 40
+* the closed-form gains and error gains of Ma and Razavi, Phys. Rev. A 86, 062319 (2012) (recalled from memory,
+  as is their reuse in Xu, Curty, Qi, Qian, Lo, New J. Phys. 15, 113007 (2013)), evaluated with mpmath at 40
   digits; the forms are typed from memory and confirmed here by the independent phase-averaged model;
 * the two-single-photon yield Y11 and its X-basis error rate e11 (same papers, from memory) against the
   mixed derivative of the model's own gain (Richardson-extrapolated finite differences);
-* the asymptotic rate R = Q11 (1 - h(e11)) - f Q_Z h(E_Z) (Lo, Curty, Qi, PRL 108, 130503 (2012), Eq. (1))
+* the asymptotic rate R = Q11 (1 - h(e11)) - f Q_Z h(E_Z) (Lo, Curty, Qi, PRL 108, 130503 (2012), Eq. (1), from memory)
   with the closed forms;
 * the repeaterless bound -log2(1 - eta) of Pirandola, Laurenza, Ottaviani, Banchi, Nat. Commun. 8, 15043
   (2017), at the end-to-end fibre transmittance.

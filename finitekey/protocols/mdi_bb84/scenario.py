@@ -24,11 +24,13 @@ two-detector set-up of Ma and Razavi 2012).  Phase randomisation makes ``phi`` u
 computed by the trapezoid rule on ``_PHASES`` points (exact to rounding for these smooth periodic integrands,
 and free of the cancellation of the closed forms at high loss).  A result is correct when it matches the
 bits as BB84-MDI prescribes (Z: both results mean anti-correlated bits; X: ``psi+`` correlated, ``psi-``
-anti-correlated).  Misalignment is the phenomenological model of Ma and Razavi (2012): each announced result
-is flipped with probability ``e_mis`` (the relay's outcome, not a physical rotation).
+anti-correlated).  Misalignment is the phenomenological model of Ma and Razavi (2012; from memory, their text
+could not be read here): each announced result is flipped with probability ``e_mis`` (the relay's outcome, not a
+physical rotation).
 
-Averaged over the four bit combinations of a basis this is the closed form of Ma and Razavi 2012 (their
-Appendix; also Xu, Curty, Qi, Lo 2013), which the tests compare with (``tests/test_mdi_model.py``).  The
+Averaged over the four bit combinations of a basis this is the closed form of Ma and Razavi 2012 (recalled from
+memory, as are its section and the later use in Xu, Curty, Qi, Qian, Lo 2013; neither text could be read here),
+which the tests compare with (``tests/test_mdi_model.py``).  The
 photon-number yield of one photon from each side, ``Y11``, and its X-basis error rate ``e11`` are their closed
 forms (checked against the derivative of this model's gain in the tests).
 
@@ -38,7 +40,7 @@ References
    Phys. Rev. A 86, 062319 (2012).
 .. [2] H.-K. Lo, M. Curty, B. Qi, "Measurement-device-independent quantum key distribution",
    Phys. Rev. Lett. 108, 130503 (2012).
-.. [3] F. Xu, M. Curty, B. Qi, H.-K. Lo, "Practical aspects of measurement-device-independent quantum key
+.. [3] F. Xu, M. Curty, B. Qi, L. Qian, H.-K. Lo, "Practical aspects of measurement-device-independent quantum key
    distribution", New J. Phys. 15, 113007 (2013).
 .. [4] S. Pirandola, R. Laurenza, C. Ottaviani, L. Banchi, Nat. Commun. 8, 15043 (2017) (the bound the
    rates are tested against).
@@ -277,7 +279,7 @@ def y11_closed_form(eta_a, eta_b, pd, encoding: str = "polarisation"):
     """``Y11 = (1-pd)^2 [eta_a eta_b / 2 + (2 eta_a + 2 eta_b - 3 eta_a eta_b) pd + 4 (1-eta_a)(1-eta_b) pd^2]``.
 
     The yield of a single photon from each side with four threshold detectors (Ma and Razavi 2012; also Xu et
-    al. 2013, their appendix; from memory, checked against the derivative of :meth:`RelayModel.gains` in the
+    al. 2013; from memory, checked against the derivative of :meth:`RelayModel.gains` in the
     tests).  Half of it with time-bin encoding (psi- patterns only).
     """
     y = (1 - pd) ** 2 * (eta_a * eta_b / 2 + (2 * eta_a + 2 * eta_b - 3 * eta_a * eta_b) * pd
@@ -303,7 +305,7 @@ def asymptotic_rate(model: RelayModel, mu_a, mu_b, ec_efficiency: float, sifting
     """Asymptotic key rate per pulse pair with infinitely many decoys (exact ``Y11``, ``e11``).
 
     ``R = sifting * [mu_a mu_b e^{-mu_a-mu_b} Y11 (1 - h(e11)) - f Q_Z h(E_Z)]``, clipped at 0 (Lo, Curty, Qi
-    2012, Eq. (1); key from the Z basis at the signal intensities).  Vectorised in ``mu_a``, ``mu_b``.
+    2012, Eq. (1), from memory; key from the Z basis at the signal intensities).  Vectorised in ``mu_a``, ``mu_b``.
 
     Parameters
     ----------
