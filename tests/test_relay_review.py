@@ -53,3 +53,38 @@ def test_tf_sns_upper_tail_form_is_implied_by_chernoffs_bound():
             x = AN.chernoff_actual_upper(m, beta, math.sqrt)
             d = mp.mpf(x) / m - 1
             assert d * d * m / (2 + d) == pytest.approx(beta, rel=1e-9)
+
+
+def test_tf_sns_certified_yield_is_the_lim_form_with_both_vacuum_ends():
+    """The certified y_1 (decoy engine, Lim et al. 2014 three-intensity form on the virtual one-sided sender)
+    re-derived here by hand: [mu_2^2 e^{mu_1} c_1 - mu_1^2 e^{mu_2} c_2 - mu_2^2 y_0^U + mu_1^2 y_0^L] /
+    (mu_1 mu_2 (mu_2 - mu_1)), evaluated in mpmath at 40 digits from the same certified count intervals; it is
+    below the note's form with y_0^U alone by mu_1 (y_0^U - y_0^L)/(mu_2 (mu_2 - mu_1))."""
+    import mpmath as mp
+    from flint import arb
+
+    from finitekey.decoy import intervals as IV
+    from finitekey.protocols.tf_sns import analysis as AN
+    blk = _tf_block(vacuum=40)
+    p = blk.parameters
+    led = AN.block_ledger(blk)
+    eps_c = led.failure_probability("count_estimation")
+    T = blk.effective_events
+    weak_lo = IV.count_interval_certified("exact", blk.weak_one_sided, T, eps_c)[0]
+    strong_hi = IV.count_interval_certified("exact", blk.strong_one_sided, T, eps_c)[1]
+    vac_lo, vac_hi = IV.count_interval_certified("exact", blk.vacuum, T, eps_c)
+    eng = AN.single_photon_yield_lower(p, blk.acceptance_width_rad, weak_lo, strong_hi, vac_lo, vac_hi, T)
+    with mp.workdps(40):
+        mu1, mu2 = (mp.mpf(x) for x in p.decoy_intensities)
+        p0, p1, p2 = (mp.mpf(x) for x in p.decoy_probabilities)
+        x = (1 - mp.mpf(p.key_window_probability)) ** 2
+        c1 = mp.mpf(float(weak_lo.mid())) / (2 * x * p0 * p1)
+        c2 = mp.mpf(float(strong_hi.mid())) / (2 * x * p0 * p2)
+        y0u, y0l = (mp.mpf(float(v.mid())) / (x * p0 * p0) for v in (vac_hi, vac_lo))
+        den = mu1 * mu2 * (mu2 - mu1)
+        lim = (mu2 ** 2 * mp.e ** mu1 * c1 - mu1 ** 2 * mp.e ** mu2 * c2 - mu2 ** 2 * y0u + mu1 ** 2 * y0l) / den
+        note = (mu2 ** 2 * mp.e ** mu1 * c1 - mu1 ** 2 * mp.e ** mu2 * c2 - (mu2 ** 2 - mu1 ** 2) * y0u) / den
+        assert float(eng.mid()) == pytest.approx(float(lim), rel=1e-9)
+        assert float(eng.upper()) <= float(note)
+        assert float(note - lim) == pytest.approx(float(mu1 * (y0u - y0l) / (mu2 * (mu2 - mu1))), rel=1e-9)
+    assert isinstance(eng, arb)

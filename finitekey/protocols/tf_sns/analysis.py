@@ -220,8 +220,9 @@ def single_photon_yield_lower(params, width, weak_lo, strong_hi, vac_lo, vac_hi,
     The merged one-sided classes (strong, weak, vacuum) are one virtual sender with intensities
     ``(mu_2, mu_1, 0)`` chosen with probabilities proportional to the class probabilities ``P_k``
     (note, section 3.2); the counts are rescaled by ``q_k / P_k`` so that :func:`finitekey.decoy.bound`'s
-    single-photon count ``s_1`` (the closed form of Lim et al. 2014 here, equal to the vacuum + two decoys
-    form of :func:`estimates`) gives ``y_1 = s_1 / tau_1``.  Sides of the intervals the analysis does not charge are given
+    single-photon count ``s_1`` (the closed form of Lim et al. 2014 here: the vacuum + two decoys form of
+    :func:`estimates` with its vacuum term split as ``-mu_2^2 y_0^U + mu_1^2 y_0^L``, lower by
+    ``mu_1 (y_0^U - y_0^L) / (mu_2 (mu_2 - mu_1))``; equal at exact counts) gives ``y_1 = s_1 / tau_1``.  Sides of the intervals the analysis does not charge are given
     their trivial values (0 and ``total``), which always hold.
 
     Returns
