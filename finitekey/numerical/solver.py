@@ -26,7 +26,7 @@ import time
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import ComputationError, InputError
 from .certificate import certify
 from .model import KeyRateProblem, SolverResult, all_constraints, key_map_blocks
 from .objective import LN2, Objective
@@ -79,7 +79,17 @@ class _LinearSDP:
     def solve(self, grad: np.ndarray):
         g = (grad + grad.conj().T) / 2
         self.c.value = np.real(g) if self.real else g
-        self.problem.solve(solver=self.cp.CLARABEL)
+        self.failed = False
+        try:
+            self.problem.solve(solver=self.cp.CLARABEL)
+        except self.cp.error.SolverError:
+            # Clarabel gives up on some feasible problems (e.g. redundant equalities that rounding made
+            # very slightly inconsistent); SCS is less accurate, which only loosens the certified bound
+            try:
+                self.problem.solve(solver=self.cp.SCS, eps=1e-9, max_iters=100000)
+            except self.cp.error.SolverError:
+                self.failed = True
+                return None, None
         if self.x.value is None:
             return None, None
         y = []
@@ -136,6 +146,9 @@ def _frank_wolfe(problem, obj, constraints, *, tol, max_iter, eps):
     from scipy.optimize import minimize_scalar  # scipy.optimize costs 0.2 s at import: only here
 
     rho, _ = sdp.solve(np.zeros((problem.dim, problem.dim)))
+    if rho is None and sdp.failed:
+        raise ComputationError("the conic solvers (Clarabel, then SCS) failed on the linear SDP of this problem; "
+                               "no bound was computed (try backend='qics')")
     if rho is None:
         raise InputError("constraints", "an empty feasible set", "statistics consistent with some quantum state")
     rho = _psd_part(rho)
