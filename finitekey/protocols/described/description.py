@@ -61,6 +61,11 @@ MAX_DIMENSION = 16
 #: The tables a description occupies in a scenario or description file.
 DESCRIPTION_SECTIONS = ("description", "alice", "bob", "sifting")
 
+#: Largest modulus of a matrix or ket entry read: valid entries are at most 1; a moderately wrong entry is left
+#: to the norm, trace and positivity checks (clearer messages), a huge one would overflow inside them.
+_MAX_ENTRY = 1e6
+#: Largest tolerance of the derived problem's checks (finitekey.numerical.model.KeyRateProblem needs < 1e-2).
+_MAX_PROBLEM_TOL = 5e-3
 _SETTING_PROB = Domain(0.0, 1.0, lower_open=True)
 _PROB = Domain(0.0, 1.0)
 
@@ -174,6 +179,11 @@ def _entry(value, field: str) -> complex:
         raise InputError(field, value, "a number or a complex number written as a string, e.g. \"0.5-0.5j\"")
     if not (math.isfinite(z.real) and math.isfinite(z.imag)):
         raise InputError(field, value, "a finite number")
+    if abs(z) > _MAX_ENTRY:
+        # no entry of a state, a ket or a POVM element (0 <= M <= 1) exceeds 1 in modulus; huge entries would
+        # only overflow inside the later checks
+        raise InputError(field, value, "an entry of modulus at most 1e6 (entries of states and POVM elements are at "
+                                       "most 1 in modulus)")
     return z
 
 
@@ -540,7 +550,7 @@ def problem(desc: Description, pic: Picture, lower: np.ndarray, upper: np.ndarra
         km = desc.alice[x].key
         key_map.append(km[k] if km is not None and any(x == kx for kx, _ in desc.key_pairs) else -1)
     return KeyRateProblem(pic.dim_a, pic.dim_b, pic.rho_a, pic.povm_a, pic.povm_b, tuple(anns), tuple(key_map),
-                          tuple(cons), tol=max(desc.tolerance, 1e-10) * 10)
+                          tuple(cons), tol=min(max(desc.tolerance, 1e-10) * 10, _MAX_PROBLEM_TOL))
 
 
 def picture_index(desc: Description) -> tuple:
