@@ -54,3 +54,21 @@ def test_rotated_bb84_is_solved_and_certified_below_shor_preskill():
     assert res.certified_lower / p_kept <= truth
     assert res.certified_lower / p_kept > truth - 1e-4
     assert math.isfinite(res.primal)
+
+
+def test_qics_back_end_with_a_key_value_unused_by_an_announcement():
+    # Key values 0 and 2 (1 unused): a relabelling of BB84, so the value is Shor-Preskill's. The qics cone
+    # failed with a raw ValueError (reshape of an empty array) on the empty block of the key register.
+    import pytest
+
+    pytest.importorskip("qics")
+    from dataclasses import replace
+
+    q = 0.05
+    prob, p_kept = R.bb84_depolarising(q)
+    relabelled = replace(prob, key_map=tuple(2 * k if k >= 0 else k for k in prob.key_map))
+    assert relabelled.n_key == 3
+    res = solve(relabelled, backend="qics")
+    truth = _shor_preskill(q)
+    assert res.certified_lower / p_kept <= truth
+    assert res.certified_lower / p_kept > truth - 1e-4

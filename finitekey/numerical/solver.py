@@ -235,8 +235,12 @@ def _qics_solve(problem, constraints, *, tol):
         gx = sp.hstack([sp.csr_matrix((nfull, m)), -full_from_compact])
         g_blocks += [gt.tocsr(), gx.tocsr()]
         h_blocks += [np.zeros((1, 1)), np.zeros((nfull, 1))]
+        # only the key values this announcement can produce: a zero block of the key register (a key value
+        # unused here) changes neither G nor Z(G), but qics's cone fails on it (reshape of an empty array)
+        used = [k[i * n:(i + 1) * n] for i in range(problem.n_key) if np.any(k[i * n:(i + 1) * n])]
+        k = np.vstack(used)
         k = k if iscomplex else np.ascontiguousarray(np.real(k))
-        cones.append(qics.cones.QuantKeyDist([k], problem.n_key, iscomplex=iscomplex))
+        cones.append(qics.cones.QuantKeyDist([k], len(used), iscomplex=iscomplex))
     model = qics.Model(c=c, A=a_mat, b=b, G=sp.vstack(g_blocks).tocsr(), h=np.vstack(h_blocks), cones=cones)
     solver = qics.Solver(model, verbose=0, tol_gap=max(tol * 1e-2, 1e-9), tol_feas=1e-9)
     info = solver.solve()
