@@ -46,3 +46,14 @@ def test_entry_larger_than_one_is_refused_naming_the_entry(tmp_path, entry):
         parse_description({k: v for k, v in data.items() if k in ("description", "alice", "bob", "sifting")})
     assert info.value.field == "bob.settings[0].povm[0][0][0]"
     assert "modulus at most 1e6" in str(info.value)
+
+
+def test_mixed_signal_states_carry_the_trusted_mixture_assumption(tmp_path):
+    # A mixed signal is purified into Alice's own system (source replacement): that is only sound if the
+    # mixture is private to Alice's device (trusted noise); if Eve may hold the purification, Eve knows more.
+    # (Source replacement of mixed states; common practice, no source.) The result must say so.
+    pure = key_length(parse_block(BLOCK | {"description": str(EXAMPLES / "described" / "bb84_qubit.toml")}))
+    assert not any("mixed signal" in a for a in pure.assumptions)
+    path = _description(tmp_path, "states = [[1, 0], [0, 1]]", "states = [[[0.99, 0], [0, 0.01]], [0, 1]]")
+    res = key_length(parse_block({**BLOCK, "description": path}))
+    assert any("mixed signal" in a and "Eve" in a for a in res.assumptions)

@@ -163,6 +163,9 @@ ASSUMPTIONS = (
     "error verification with a two-universal hash of ceil(log2(1/eps_cor)) bits, counted as leakage",
     "privacy amplification with two-universal hashing; the classical channel is authenticated",
 )
+MIXED_SIGNALS = ("a mixed signal state is purified into Alice's own system (source replacement): its mixture is "
+                 "assumed private to Alice's device (trusted noise); if Eve may know or hold it (e.g. a phase "
+                 "known to Eve), the key length is not shown secure")
 MODELLED_LEAKAGE = ("leakage is MODELLED as ceil(ec_efficiency * n * H(K|B)) with H(K|B) from the test-round "
                     "frequencies, not measured: secure only if reconciliation disclosed at most that many bits")
 
@@ -259,6 +262,8 @@ def key_length(block: DescribedBlock, statistics=None, *, prec: int = 128) -> Ke
         rate = leakage_rate(desc, block.counts / m)
         leak = int(math.ceil(block.ec_efficiency * n * rate * (1 + 1e-12)))
         assumptions = assumptions + (MODELLED_LEAKAGE,)
+    if any(np.linalg.matrix_rank(rho, tol=desc.tolerance) > 1 for s in desc.alice for rho in s.elements):
+        assumptions = assumptions + (MIXED_SIGNALS,)
     lo, hi = intervals(block.counts, eps_pe)
     estimates = {"test_rounds": m, "key_rounds": n, "intervals": K, "interval_failure_probability": eps_pe}
     settings = {"attacks": block.attacks, "finite_size": "collective-attack AEP (George, Lin, Lütkenhaus 2021)"}
