@@ -72,3 +72,52 @@ def test_qics_back_end_with_a_key_value_unused_by_an_announcement():
     truth = _shor_preskill(q)
     assert res.certified_lower / p_kept <= truth
     assert res.certified_lower / p_kept > truth - 1e-4
+
+
+def test_qics_failure_is_one_computation_error():
+    # A complex problem (random POVMs, seed 42 of the review's generator) on which qics's key-rate cone raises
+    # a numpy casting error internally; the API must raise finitekey's ComputationError (one line), and the
+    # default back end must still certify a bound below the honest state's value.
+    import pytest
+
+    pytest.importorskip("qics")
+    from finitekey.errors import ComputationError
+    from finitekey.numerical.model import Announcement
+    from finitekey.numerical.objective import LN2, Objective
+    from finitekey.numerical.model import key_map_blocks
+
+    rng = np.random.default_rng(42)
+    da, db = int(rng.integers(2, 4)), int(rng.integers(2, 4))
+    cplx = bool(rng.integers(0, 2))
+
+    def psd(d, rank):
+        a = rng.normal(size=(d, rank)) + (1j * rng.normal(size=(d, rank)) if cplx else 0)
+        return a @ a.conj().T
+
+    def povm(d, n):
+        ms = [psd(d, int(rng.integers(1, d + 1))) for _ in range(n)]
+        w, u = np.linalg.eigh(sum(ms))
+        si = (u * w ** -0.5) @ u.conj().T
+        ms = [(si @ m @ si + (si @ m @ si).conj().T) / 2 for m in ms]
+        ms[-1] = np.eye(d) - sum(ms[:-1])
+        return [(m + m.conj().T) / 2 for m in ms]
+
+    pa, pb = povm(da, int(rng.integers(2, 5))), povm(db, int(rng.integers(2, 5)))
+    rho = psd(da * db, int(rng.integers(1, da * db + 1)))
+    rho /= np.trace(rho).real
+    rho_a = np.trace(rho.reshape(da, db, da, db), axis1=1, axis2=3)
+    key = [int(rng.integers(-1, 3)) for _ in pa]
+    kept = tuple(x for x in range(len(pa)) if key[x] >= 0)
+    stats = expected_statistics((pa, pb), rho)
+    slack = float(rng.choice([0, 0, 1e-3, 1e-2]))
+    prob = KeyRateProblem(dim_a=da, dim_b=db, rho_a=rho_a, povm_a=tuple(pa), povm_b=tuple(pb),
+                          announcements=(Announcement(kept, tuple(range(len(pb) - 1))),), key_map=tuple(key),
+                          constraints=statistics_constraints(pa, pb, stats, slack=slack))
+    assert not prob.is_real
+    try:
+        solve(prob, backend="qics")
+    except ComputationError as exc:
+        assert "\n" not in str(exc)
+    res = solve(prob)
+    honest = Objective(key_map_blocks(prob)).value(rho) / LN2
+    assert res.certified_lower <= honest

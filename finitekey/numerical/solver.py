@@ -243,7 +243,13 @@ def _qics_solve(problem, constraints, *, tol):
         cones.append(qics.cones.QuantKeyDist([k], len(used), iscomplex=iscomplex))
     model = qics.Model(c=c, A=a_mat, b=b, G=sp.vstack(g_blocks).tocsr(), h=np.vstack(h_blocks), cones=cones)
     solver = qics.Solver(model, verbose=0, tol_gap=max(tol * 1e-2, 1e-9), tol_feas=1e-9)
-    info = solver.solve()
+    try:
+        info = solver.solve()
+    except (ValueError, TypeError, ArithmeticError, np.linalg.LinAlgError) as exc:
+        # qics fails inside its cone on some complex problems (a complex128 -> float64 cast in the Hessian
+        # product); one line instead of a traceback from a third-party solver
+        raise ComputationError(f"the qics back end failed on this problem ({type(exc).__name__}: {exc}); "
+                               "no bound was computed (try backend='cvxpy')") from None
     xc = np.asarray(info["x_opt"]).ravel()[m:]
     xfull = np.asarray(full_from_compact @ xc).reshape(-1, 1)
     rho = qics.vectorize.vec_to_mat(xfull, iscomplex=iscomplex)
