@@ -25,7 +25,7 @@ from finitekey.protocols import bb84, decoy_bb84
 from finitekey.protocols._spec import markdown_table
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-PROTOCOLS = ("bb84", "decoy-bb84", "mdi-bb84")
+PROTOCOLS = tuple(protocols.names())   # every registered protocol: a new one is checked without edits here
 
 
 def _example_blocks():
@@ -67,7 +67,7 @@ def test_fields_lists_every_scenario_and_block_field(name, capsys):
     assert set(proto.scenario_fields()) <= set(listed)
     assert set(listed) - set(proto.scenario_fields()) <= {"protocol.name"}
     module = importlib.import_module("finitekey.protocols." + name.replace("-", "_"))
-    assert [r["field"] for r in doc["block"]] == list(module.block._BLOCK_FIELDS)
+    assert [r["field"] for r in doc["block"]] == [spec.name for spec in module.block.BLOCK_SPECS]
     assert "caution" in doc
     for r in doc["scenario"] + doc["block"]:
         assert r["description"] and r["allowed"] and r["type"] and r["unit"]
@@ -132,10 +132,12 @@ def _base_block(name, field):
         if field in ("ec_efficiency", "key_qber"):
             del d["ec_leak_bits"]
             d.update(ec_efficiency=1.1, key_qber=0.02)
-    else:
-        stem = "mdi_block" if name == "mdi-bb84" else "decoy_block"
-        with open(os.path.join(ROOT, "examples", "blocks", f"{stem}.json")) as fh:
+    else:   # the protocol's example block (examples/blocks/<stem>.json), found by its "protocol" field
+        stems = {"decoy-bb84": "decoy_block", "mdi-bb84": "mdi_block", "tf-sns": "tf_sns_block",
+                 "described": "described_block"}
+        with open(os.path.join(ROOT, "examples", "blocks", f"{stems[name]}.json")) as fh:
             d = json.load(fh)
+        assert d["protocol"] == name
     if field in ("eps_total", "eps_cor_share"):
         del d["eps_sec"], d["eps_cor"]
         d["eps_total"] = 1e-9
