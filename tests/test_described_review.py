@@ -28,11 +28,20 @@ def _description(tmp_path, old, new):
 
 
 def test_largest_declared_tolerance_gives_a_key_not_an_internal_error(tmp_path):
-    # tolerance 1e-3 is inside the declared domain; it used to fail as "tol = 0.01 is not allowed" (a field the
-    # user never wrote) because the problem was built with ten times the description's tolerance
-    path = _description(tmp_path, "tolerance = 1e-9", "tolerance = 1e-3")
+    # the largest declared tolerance (1e-6) gives a key; 1e-3 (the old upper end) used to fail as "tol = 0.01 is
+    # not allowed" (a field the user never wrote) because the problem was built with ten times the tolerance
+    path = _description(tmp_path, "tolerance = 1e-9", "tolerance = 1e-6")
     res = key_length(parse_block({**BLOCK, "description": path}))
     assert res.secret_key_length > 0
+
+
+def test_tolerance_looser_than_1e_6_is_refused_naming_the_field(tmp_path):
+    # review finding: 1e-3 accepted POVM elements with eigenvalue -4e-4 (common practice, no source: a
+    # certificate for a non-physical problem is not a certificate for the measured one)
+    path = _description(tmp_path, "tolerance = 1e-9", "tolerance = 1e-3")
+    with pytest.raises(InputError) as info:
+        key_length(parse_block({**BLOCK, "description": path}))
+    assert info.value.field == "description.tolerance" and "1e-06" in str(info.value)
 
 
 @pytest.mark.parametrize("entry", ["1e308", "-1e300", "\"1e200j\"", "2e6"])

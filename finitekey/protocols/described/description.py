@@ -54,8 +54,11 @@ __all__ = ["Setting", "Description", "parse_description", "parse_matrix", "DEFAU
 
 #: Default tolerance of the matrix checks (Hermitian, positive semidefinite, unit trace, POVM sum).
 DEFAULT_TOLERANCE = 1e-9
-#: Allowed tolerances: a matrix check looser than 1e-3 would accept states that are not states.
-TOLERANCE_DOMAIN = Domain(0.0, 1e-3, lower_open=True)
+#: Allowed tolerances.  The certificate charges the distance of a near-PSD element from the PSD cone only
+#: through the objective's value (the Fannes term), not through its gradient, so the matrices must be close to
+#: physical: a check looser than 1e-6 would let through POVM elements with eigenvalues near -1e-3, i.e. a
+#: problem that is not the one measured.  Round measured matrices to physical ones before describing them.
+TOLERANCE_DOMAIN = Domain(0.0, 1e-6, lower_open=True)
 #: Largest signal dimension accepted (the solver's problem grows as (dim_A dim_B)^2).
 MAX_DIMENSION = 16
 #: The tables a description occupies in a scenario or description file.
