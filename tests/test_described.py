@@ -326,3 +326,23 @@ def test_a_solver_failure_is_a_computation_error_not_a_traceback(monkeypatch, ca
     rc = main(["keylength", str(BLOCK)])
     err = capsys.readouterr().err.strip()
     assert rc != 0 and err.count("\n") == 0 and "numerical solver failed" in err
+
+
+def test_certificate_with_rounded_factors_is_stated_as_an_assumption(monkeypatch):
+    # When the solver's certificate falls back to float factors of the key map (exact_factors False; see
+    # proofs_notes/numerical/solver.md section 4, an open assumption there), the result must say so; with
+    # exact factors it must not. The fallback is forced here on the qubit example (it arises from POVM
+    # elements PSD only within the tolerance, covered in tests/test_numerical_solver.py).
+    import dataclasses
+    from finitekey.protocols.described import analysis as A
+    sc = protocols.get("described").parse_scenario(tomllib.loads((EXAMPLES / "bb84_qubit.toml").read_text()))
+    blk = expected_block(sc, 10**9, 0.9, 0.02)
+    assert not [a for a in key_length(blk).assumptions if "float factors" in a]
+    solve = A.solve_problem
+
+    def rounded(*args, **kwargs):
+        res = solve(*args, **kwargs)
+        return dataclasses.replace(res, details={**res.details, "exact_factors": False})
+    monkeypatch.setattr(A, "solve_problem", rounded)
+    flagged = [a for a in key_length(blk).assumptions if "float factors" in a]
+    assert len(flagged) == 1 and "open assumption" in flagged[0]

@@ -166,6 +166,10 @@ ASSUMPTIONS = (
 MIXED_SIGNALS = ("a mixed signal state is purified into Alice's own system (source replacement): its mixture is "
                  "assumed private to Alice's device (trusted noise); if Eve may know or hold it (e.g. a phase "
                  "known to Eve), the key length is not shown secure")
+ROUNDED_FACTORS = ("the solver's certificate used float factors of the key map (an element was positive "
+                   "semidefinite only within the tolerance): its convexity step then holds up to the factor "
+                   "rounding (about 1e-13 bits per round measured), an open assumption of "
+                   "proofs_notes/numerical/solver.md section 4, not a proven bound")
 MODELLED_LEAKAGE = ("leakage is MODELLED as ceil(ec_efficiency * n * H(K|B)) with H(K|B) from the test-round "
                     "frequencies, not measured: secure only if reconciliation disclosed at most that many bits")
 
@@ -276,6 +280,8 @@ def key_length(block: DescribedBlock, statistics=None, *, prec: int = 128) -> Ke
                                                          f"the solver found no state for these statistics: {exc}"),
                                settings)
     beta = max(0.0, float(res.certified_lower))
+    if res.details.get("exact_factors") is False:
+        assumptions = assumptions + (ROUNDED_FACTORS,)
     estimates.update({"solver_iterations": int(res.iterations), "solver_seconds": float(res.seconds)})
     settings.update({"solver": str(res.solver), "solver_status": str(res.status)})
     terms = {"entropy_per_round_certified": beta, "entropy_per_round_primal": float(res.primal),
