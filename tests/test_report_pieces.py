@@ -392,3 +392,34 @@ def test_input_error_pickles_and_atomic_write_uses_normal_permissions(tmp_path):
     finally:
         os.umask(umask)
     assert (os.stat(tmp_path / "t.txt").st_mode & 0o777) == 0o644
+
+
+def test_every_figure_format_carries_the_caution():
+    # House rule: every output carries the caution of finitekey.cautions, figures included.  It goes into
+    # the metadata: PNG "Disclaimer" text chunk (a keyword registered in the PNG specification, 11.3.4.2),
+    # SVG Dublin Core "rights", PDF info dictionary "Subject".  Before this check a plot had no caution.
+    import zlib
+    from finitekey.cautions import CAUTION
+    fig = rate_figure([Curve("a", (1, 2, 3), (1e-3, 2e-3, 3e-3))], "x", title="t")
+    prov = {"version": "0", "input": "a.toml", "input_sha256": "ab", "command": "finitekey plot a.toml"}
+    for p in (None, prov):
+        png = figure_bytes(fig, "png", provenance=p)
+        chunks, i = {}, 8
+        while i < len(png):  # walk the PNG chunks (PNG specification section 5.3)
+            n = int.from_bytes(png[i:i + 4], "big")
+            kind, data = png[i + 4:i + 8], png[i + 8:i + 8 + n]
+            if kind == b"tEXt":
+                k, v = data.split(b"\0", 1)
+                chunks[k.decode("latin-1")] = v.decode("latin-1")
+            elif kind == b"zTXt":
+                k, v = data.split(b"\0", 1)
+                chunks[k.decode("latin-1")] = zlib.decompress(v[1:]).decode("latin-1")
+            elif kind == b"iTXt":
+                k, rest = data.split(b"\0", 1)
+                chunks[k.decode("latin-1")] = rest.split(b"\0", 2)[2].split(b"\0", 1)[-1].decode("utf-8")
+            i += 12 + n
+        assert chunks.get("Disclaimer") == CAUTION
+        svg = figure_bytes(fig, "svg", provenance=p).decode("utf-8")
+        assert CAUTION in svg
+        pdf = figure_bytes(fig, "pdf", provenance=p)
+        assert b"design aids, not a certificate" in pdf

@@ -37,6 +37,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from ..cautions import CAUTION
 from ..channel import repeaterless_bound
 from ..errors import InputError
 from .numbers import format_number
@@ -441,10 +442,14 @@ def figure_bytes(fig: Figure, fmt: str, provenance: dict | None = None, dpi: flo
     tool = f"finitekey {p.get('version', '')}".strip()
     source = f"{p.get('input', '')} sha256 {p.get('input_sha256', '')}" if p else ""
     command = p.get("command", "")
-    meta = {"png": {"Software": tool, **({"Source": source, "Comment": command} if p else {})},
-            "svg": {"Date": None, "Creator": tool, **({"Source": source, "Description": command} if p else {})},
+    # The caution rides in every format's metadata: PNG "Disclaimer" (a registered PNG keyword),
+    # SVG Dublin Core "Rights", PDF "Subject" (after the input's name and hash when known).
+    meta = {"png": {"Software": tool, "Disclaimer": CAUTION,
+                    **({"Source": source, "Comment": command} if p else {})},
+            "svg": {"Date": None, "Creator": tool, "Rights": CAUTION,
+                    **({"Source": source, "Description": command} if p else {})},
             "pdf": {"CreationDate": None, "ModDate": None, "Creator": tool, "Producer": tool,
-                    **({"Subject": source, "Keywords": command} if p else {})}}[fmt]
+                    "Subject": (source + ". " if p else "") + CAUTION, **({"Keywords": command} if p else {})}}[fmt]
     with rc_context(STYLE):
         fig.savefig(buf, format=fmt, dpi=(dpi or DEFAULT_DPI) if fmt == "png" else None, metadata=meta)
     return buf.getvalue()
