@@ -121,6 +121,11 @@ def test_design_default_and_file(tmp_path, capsys):
     assert d["protocol"] == "bb84" and 0.5 < d["parameters"]["p_x"] < 1
     rc, _, err = run(capsys, ["design", toml, "--reach"])
     assert rc == 2 and "decoy-bb84" in err
+    # The refusal names every protocol that has a reach (it named decoy-bb84 alone after mdi-bb84 and
+    # tf-sns gained one); common practice, no source.
+    with_reach = [n for n in protocols.names() if getattr(protocols.get(n), "reach", None) is not None]
+    assert {"decoy-bb84", "mdi-bb84", "tf-sns"} <= set(with_reach)
+    assert len(err.strip().splitlines()) == 1 and all(n in err for n in with_reach)
     bad = write(tmp_path, "bad.toml", '[protocol]\nname = "bb84"\n[channel]\nqber = 0.02\nlos = 3\n'
                                       '[budget]\ndetections = 1e6\n'
                                       '[security]\neps_total = 1e-9\n')

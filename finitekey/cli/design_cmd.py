@@ -127,7 +127,9 @@ def _run(args) -> int:
     if args.reach:
         reach = getattr(proto, "reach", None)
         if reach is None:
-            raise InputError("--reach", proto.name, "a link scenario (decoy-bb84); this protocol has no reach")
+            with_reach = [n for n in protocols.names() if getattr(protocols.get(n), "reach", None) is not None]
+            raise InputError("--reach", proto.name,
+                             f"a link scenario ({', '.join(with_reach)}); this protocol has no reach")
         out = reach(sc, args.statistics)
         if args.json:
             print(to_json(json_document(out.to_dict())))
