@@ -169,7 +169,7 @@ MIXED_SIGNALS = ("a mixed signal state is purified into Alice's own system (sour
 ROUNDED_FACTORS = ("the solver's certificate used float factors of the key map (an element was positive "
                    "semidefinite only within the tolerance): its convexity step then holds up to the factor "
                    "rounding (about 1e-13 bits per round measured), an open assumption of "
-                   "proofs_notes/numerical/solver.md section 4, not a proven bound")
+                   "finitekey/_notes/numerical/solver.md section 4, not a proven bound")
 MODELLED_LEAKAGE = ("leakage is MODELLED as ceil(ec_efficiency * n * H(K|B)) with H(K|B) from the test-round "
                     "frequencies, not measured: secure only if reconciliation disclosed at most that many bits")
 
