@@ -159,3 +159,13 @@ def test_subprocess_keylength(tmp_path):
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout)["secret_key_length"] > 0
+
+
+def test_design_text_gives_leakage_in_bits(capsys):
+    # ec_leak_bits is a number of bits disclosed by error correction, not a count of events (it was shown
+    # with the unit "count"); common practice, no source.
+    rc, out, _ = run(capsys, ["design"])
+    rows = [line.split() for line in out.splitlines() if line.startswith("expected: ec_leak_bits")]
+    assert rc == 0 and rows and rows[0][-1] == "bits"
+    assert all(r[-1] == "count" for r in (line.split() for line in out.splitlines())
+               if r and r[0] == "expected:" and r[1].endswith(("detections", "errors")))

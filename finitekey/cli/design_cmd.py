@@ -77,8 +77,7 @@ def render_design(d, source: str | None = None) -> str:
         for k, v in d.parameters.items():  # a nested mapping (e.g. the epsilon split) gets one row per entry
             items = v.items() if isinstance(v, dict) else [(None, v)]
             rows += [["parameter: " + k + ("" if sub is None else "." + sub), _value(x), ""] for sub, x in items]
-        rows += [["expected: " + k, _value(v), "count" if not k.endswith(("qber", "fraction")) else "fraction"]
-                 for k, v in d.expected_counts.items()]
+        rows += [["expected: " + k, _value(v), _expected_unit(k)] for k, v in d.expected_counts.items()]
     else:
         head.append("No parameters are chosen: the search found none that gives a key (the last point tried is "
                     "in the --json output under parameters_tried).")
@@ -120,6 +119,13 @@ def render_reach(r) -> str:
         if k.endswith("_at_reach"):
             rows.append([k.removesuffix("_at_reach").replace("_", " ") + " " + label, _value(v)])
     return table(rows, ["quantity", "value"])
+
+
+def _expected_unit(key: str) -> str:
+    """Unit of an expected quantity of a design, from its name: bits, fraction or count."""
+    if key.endswith("_bits"):
+        return "bits"
+    return "fraction" if key.endswith(("qber", "fraction")) else "count"
 
 
 def _run(args) -> int:
