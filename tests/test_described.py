@@ -346,3 +346,15 @@ def test_certificate_with_rounded_factors_is_stated_as_an_assumption(monkeypatch
     monkeypatch.setattr(A, "solve_problem", rounded)
     flagged = [a for a in key_length(blk).assumptions if "float factors" in a]
     assert len(flagged) == 1 and "open assumption" in flagged[0]
+
+
+def test_missing_description_file_names_the_description_field(tmp_path):
+    # A block naming a description file that does not exist: the one-line error names the block's field
+    # (description), not a generic "file"; common practice, no source.
+    from finitekey.errors import InputError
+    from finitekey.protocols.described.block import load_description
+    missing = str(tmp_path / "nope.toml")
+    with pytest.raises(InputError) as info:
+        load_description(missing)
+    assert info.value.field == "description" and info.value.value == missing
+    assert "existing" in info.value.allowed

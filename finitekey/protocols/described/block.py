@@ -128,7 +128,12 @@ def load_description(value, field: str = "description") -> Description:
             except (OSError, ValueError) as exc:
                 raise InputError(field, value, f"a readable JSON description file ({type(exc).__name__})") from None
         else:
-            data = read_toml(value)
+            try:
+                data = read_toml(value)
+            except InputError as exc:  # an unreadable file: name the block's field, not a generic "file"
+                if exc.field != "file":
+                    raise
+                raise InputError(field, value, exc.allowed) from None
         if not isinstance(data, dict):
             raise InputError(field, value, "a file holding the description tables")
         return parse_description({k: v for k, v in data.items() if k in DESCRIPTION_SECTIONS})
