@@ -423,3 +423,23 @@ def test_every_figure_format_carries_the_caution():
         assert CAUTION in svg
         pdf = figure_bytes(fig, "pdf", provenance=p)
         assert b"design aids, not a certificate" in pdf
+
+
+@pytest.mark.parametrize("size", [None, (3.5, 2.6)])
+def test_every_figure_shows_the_caution_on_its_face(size):
+    # House rule (common practice, no source): the caution is visible on the figure itself, not only in the
+    # file's metadata, inside the figure, and overlapping neither the title nor the stamp. Before this check
+    # a figure printed on paper carried no caution.
+    from finitekey.cautions import FIGURE_CAUTION
+    fig = rate_figure([Curve("a", (1, 2, 3), (1e-3, 2e-3, 3e-3))], "x", title="a title", note="stamp", size=size)
+    texts = [t for t in fig.texts if t.get_gid() == "caution-line"]
+    assert len(texts) == 1 and " ".join(texts[0].get_text().split()) == FIGURE_CAUTION
+    fig.canvas.draw()
+    r = fig.canvas.get_renderer()
+    box = texts[0].get_window_extent(r)
+    fig_box = fig.bbox
+    assert box.x0 >= fig_box.x0 - 0.5 and box.x1 <= fig_box.x1 + 0.5 and box.y0 >= fig_box.y0 - 0.5
+    assert box.y1 <= fig_box.y1 + 0.5
+    title = fig.axes[0].title.get_window_extent(r)
+    stamp = [t for t in fig.texts if t.get_gid() == "provenance-stamp"][0].get_window_extent(r)
+    assert not box.overlaps(title) and not box.overlaps(stamp)

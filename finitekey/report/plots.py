@@ -37,7 +37,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from ..cautions import CAUTION
+from ..cautions import CAUTION, FIGURE_CAUTION
 from ..channel import repeaterless_bound
 from ..errors import InputError
 from .numbers import format_number
@@ -155,6 +155,17 @@ DEFAULT_SIZE = (7.0, 4.4)
 DEFAULT_DPI = 110
 #: Height of the strip kept free at the top of a figure for the provenance stamp (points).
 STAMP_STRIP_PT = 13.0
+#: Font size (points) of the caution line every figure shows under its stamp.
+CAUTION_FONT_PT = 6.0
+
+
+def _caution_lines(width_in: float) -> str:
+    return _wrap(FIGURE_CAUTION, 0.98 * 72.0 * width_in, CAUTION_FONT_PT)
+
+
+def _caution_strip_pt(width_in: float) -> float:
+    """Height of the strip for the caution line(s) at this figure width."""
+    return 6.0 + 1.45 * CAUTION_FONT_PT * (_caution_lines(width_in).count("\n") + 1)
 
 
 def _style_for(size) -> dict:
@@ -181,9 +192,10 @@ def _eps(x: float) -> str:
 def _new_figure(size=None, stamp: bool = False) -> Figure:
     size = tuple(size) if size is not None else DEFAULT_SIZE
     fig = Figure(figsize=size, dpi=DEFAULT_DPI, layout="constrained")
-    if stamp:  # keep a strip at the top for the stamp, so no title or label can run into it
-        frac = min(0.2, STAMP_STRIP_PT / (72.0 * size[1]))
-        fig.get_layout_engine().set(rect=(0.0, 0.0, 1.0, 1.0 - frac))
+    # keep strips at the top for the stamp (with one) and the caution line, so that no title, label or legend
+    # can run into them (a legend placed "outside lower center" ignores a strip at the foot)
+    top = (STAMP_STRIP_PT if stamp else 0.0) + _caution_strip_pt(size[0])
+    fig.get_layout_engine().set(rect=(0.0, 0.0, 1.0, 1.0 - min(0.35, top / (72.0 * size[1]))))
     FigureCanvasAgg(fig)
     return fig
 
@@ -277,6 +289,11 @@ def _finish(ax, fig, title, note) -> None:
         fig.legend(handles, labels, loc="outside lower center", ncol=ncol)
     if note:
         fig.text(0.995, 0.997, note, fontsize=6.5, color="#6d6658", ha="right", va="top", gid="provenance-stamp")
+    # every figure shows the caution under the stamp (the full text is also in the file's metadata, see
+    # figure_bytes)
+    y = 1.0 - ((STAMP_STRIP_PT if note else 0.0) + 1.0) / h_pt
+    fig.text(0.005, y, _caution_lines(fig.get_figwidth()), fontsize=CAUTION_FONT_PT, color="#6d6658", ha="left",
+             va="top", gid="caution-line")
 
 
 def rate_figure(curves: Sequence[Curve], xlabel: str, ylabel: str = "secret key rate (bit/pulse)",
