@@ -284,3 +284,23 @@ def test_readme_scenario_table_is_the_declared_fields(name):
     assert m.group(1) == markdown_table(proto.fields_table()["scenario"])
     listed = re.findall(r"^\| `([a-z_.]+)` \|", m.group(1), re.M)
     assert listed == [s.name for s in proto.scenario_specs]
+
+
+@pytest.mark.parametrize("name", ["decoy_bb84", "mdi_bb84", "tf_sns"])
+def test_scenario_section_checks_name_the_section_or_field(name):
+    # The three scenario readers share one section/field check; each malformed mapping is refused naming the
+    # section or ``section.field`` with the same wording (common practice, no source).
+    parse = importlib.import_module(f"finitekey.protocols.{name}").parse_scenario
+    cases = [
+        ([1], "scenario", "a table of sections "),
+        ({"nosuch": {}}, "nosuch", "one of the sections "),
+        ({"protocol": 3}, "protocol", "a table of fields"),
+        ({"protocol": {"nosuch": 1}}, "protocol.nosuch", "one of the fields protocol."),
+        ({}, "protocol", "a [protocol] section with name"),
+        ({"protocol": {}}, "protocol.name", "a value (required field)"),
+    ]
+    for data, field, allowed in cases:
+        with pytest.raises(InputError) as err:
+            parse(data)
+        assert err.value.field == field, (data, err.value)
+        assert err.value.allowed.startswith(allowed), (data, err.value.allowed)

@@ -15,7 +15,7 @@ from ._spec import FieldSpec
 
 __all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "SECURITY_SCHEMA_RULE", "block_security_specs",
            "security_targets", "security_fields_with", "split_eps_total",
-           "read_label", "one_of"]
+           "read_label", "one_of", "check_sections"]
 
 #: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
 DEFAULT_EPS_COR_SHARE = 0.1
@@ -161,3 +161,40 @@ def one_of(given: dict, names: tuple, prefix: str = "", allowed: str = "") -> st
     if not present:
         raise InputError(first, None, (allowed + " " if allowed else "") + f"(or give {second} instead)")
     return present[0]
+
+
+def check_sections(data, sections: dict, required: dict) -> None:
+    """Check a scenario mapping's sections and fields against ``sections`` and ``required``.
+
+    Parameters
+    ----------
+    data
+        The scenario as given (from TOML).
+    sections : dict
+        Allowed section name -> its allowed field names.
+    required : dict
+        Required section name -> its required field names.
+
+    Raises
+    ------
+    InputError
+        Naming ``scenario`` when ``data`` is not a table, ``section`` for an unknown, non-table or missing
+        section, and ``section.field`` for an unknown or missing field.
+    """
+    if not isinstance(data, dict):
+        raise InputError("scenario", data, "a table of sections " + ", ".join(sections))
+    for sec in data:
+        if sec not in sections:
+            raise InputError(sec, data[sec], "one of the sections " + ", ".join(sections))
+        if not isinstance(data[sec], dict):
+            raise InputError(sec, data[sec], "a table of fields")
+        for key in data[sec]:
+            if key not in sections[sec]:
+                raise InputError(f"{sec}.{key}", data[sec][key], "one of the fields "
+                                 + ", ".join(f"{sec}.{k}" for k in sections[sec]))
+    for sec, keys in required.items():
+        if sec not in data:
+            raise InputError(sec, None, f"a [{sec}] section" + (" with " + ", ".join(keys) if keys else ""))
+        for key in keys:
+            if key not in data[sec]:
+                raise InputError(f"{sec}.{key}", None, "a value (required field)")

@@ -15,8 +15,8 @@ from ...channel import FIELD_DOMAINS, Detector, Link, LinkModel, Source, check_i
 from ...domains import PROBABILITY, Domain
 from ...errors import InputError
 from .. import _phase_error as PE
-from .._fields import (SECURITY_SCHEMA_RULE, block_security_specs, one_of, read_label, security_fields_with,
-                      security_targets)
+from .._fields import (SECURITY_SCHEMA_RULE, block_security_specs, check_sections, one_of, read_label,
+                      security_fields_with, security_targets)
 from .._spec import DefaultWarning, FieldSpec, by_name, sections_of
 from .block import PROTOCOL_NAME, _probabilities
 
@@ -281,23 +281,7 @@ def parse_scenario(data: dict) -> DecoyScenario:
     InputError
         Naming ``section`` or ``section.field`` for unknown or missing sections/fields and bad values.
     """
-    if not isinstance(data, dict):
-        raise InputError("scenario", data, "a table of sections " + ", ".join(_SCENARIO_SECTIONS))
-    for sec in data:
-        if sec not in _SCENARIO_SECTIONS:
-            raise InputError(sec, data[sec], "one of the sections " + ", ".join(_SCENARIO_SECTIONS))
-        if not isinstance(data[sec], dict):
-            raise InputError(sec, data[sec], "a table of fields")
-        for key in data[sec]:
-            if key not in _SCENARIO_SECTIONS[sec]:
-                raise InputError(f"{sec}.{key}", data[sec][key], "one of the fields "
-                                 + ", ".join(f"{sec}.{k}" for k in _SCENARIO_SECTIONS[sec]))
-    for sec, keys in _REQUIRED.items():
-        if sec not in data:
-            raise InputError(sec, None, f"a [{sec}] section" + (" with " + ", ".join(keys) if keys else ""))
-        for key in keys:
-            if key not in data[sec]:
-                raise InputError(f"{sec}.{key}", None, "a value (required field)")
+    check_sections(data, _SCENARIO_SECTIONS, _REQUIRED)
     pr = data["protocol"]
     if not isinstance(pr["name"], str) or pr["name"] != PROTOCOL_NAME:
         raise InputError("protocol.name", pr["name"], f"'{PROTOCOL_NAME}'")

@@ -36,7 +36,8 @@ import numpy as np
 from ...channel import FIELD_DOMAINS, repeaterless_bound
 from ...domains import PROBABILITY, RATE_HZ, Domain
 from ...errors import InputError
-from .._fields import block_security_specs, read_label, security_fields_with, security_targets
+from .._fields import (block_security_specs, check_sections, read_label, security_fields_with,
+                      security_targets)
 from .._spec import FieldSpec, by_name, sections_of
 
 __all__ = ["PROTOCOL_NAME", "SCENARIO_SPECS", "Arms", "TwinFieldLink", "SNSParameters", "TFScenario",
@@ -527,23 +528,7 @@ def parse_scenario(data: dict) -> TFScenario:
     InputError
         Naming ``section`` or ``section.field`` for unknown or missing sections/fields and bad values.
     """
-    if not isinstance(data, dict):
-        raise InputError("scenario", data, "a table of sections " + ", ".join(_SECTIONS))
-    for sec in data:
-        if sec not in _SECTIONS:
-            raise InputError(sec, data[sec], "one of the sections " + ", ".join(_SECTIONS))
-        if not isinstance(data[sec], dict):
-            raise InputError(sec, data[sec], "a table of fields")
-        for key in data[sec]:
-            if key not in _SECTIONS[sec]:
-                raise InputError(f"{sec}.{key}", data[sec][key], "one of the fields "
-                                 + ", ".join(f"{sec}.{k}" for k in _SECTIONS[sec]))
-    for sec, keys in _REQUIRED.items():
-        if sec not in data:
-            raise InputError(sec, None, f"a [{sec}] section" + (" with " + ", ".join(keys) if keys else ""))
-        for key in keys:
-            if key not in data[sec]:
-                raise InputError(f"{sec}.{key}", None, "a value (required field)")
+    check_sections(data, _SECTIONS, _REQUIRED)
     pr = data["protocol"]
     if pr["name"] != PROTOCOL_NAME:
         raise InputError("protocol.name", pr["name"], f"'{PROTOCOL_NAME}'")
