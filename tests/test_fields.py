@@ -304,3 +304,35 @@ def test_scenario_section_checks_name_the_section_or_field(name):
             parse(data)
         assert err.value.field == field, (data, err.value)
         assert err.value.allowed.startswith(allowed), (data, err.value.allowed)
+
+
+@pytest.mark.parametrize("name, block", [("decoy_bb84", "decoy_block.json"), ("mdi_bb84", "mdi_block.json"),
+                                         ("tf_sns", "tf_sns_block.json")])
+def test_epsilon_split_checks_name_the_share(name, block):
+    # The three block readers share one epsilon_split check; each bad split is refused naming ``epsilon_split``
+    # or the share, with the wording each protocol had (common practice, no source).
+    parse = importlib.import_module(f"finitekey.protocols.{name}").parse_block
+    with open(os.path.join(ROOT, "examples", "blocks", block)) as f:
+        base = json.load(f)
+    base.pop("epsilon_split", None)
+    terms = importlib.import_module(f"finitekey.protocols.{name}.block").SECRECY_TERMS
+    if name == "mdi_bb84" and not base.get("joint_constraints"):
+        terms = tuple(t for t in terms if t != "joint_estimation")
+    even = {t: 1 / len(terms) for t in terms}
+    missing = "a share in (0, 1) for every secrecy term" + (": " + ", ".join(terms) if name == "mdi_bb84" else "")
+    cases = [
+        (3, "epsilon_split", "a table of shares for " + ", ".join(terms)),
+        ({**even, "nosuch": 0.1}, "epsilon_split.nosuch", "one of " + ", ".join(terms)),
+        ({t: v for t, v in even.items() if t != terms[-1]}, f"epsilon_split.{terms[-1]}", missing),
+        ({**even, terms[0]: 1.5}, f"epsilon_split.{terms[0]}", None),
+        ({t: 0.9 / len(terms) for t in terms}, "epsilon_split", "shares summing to 1"),
+    ]
+    assert parse({**base, "epsilon_split": even}).epsilon_split == pytest.approx(even)
+    for split, field, allowed in cases:
+        with pytest.raises(InputError) as err:
+            parse({**base, "epsilon_split": split})
+        assert err.value.field == field, (split, err.value)
+        if allowed is not None:
+            assert err.value.allowed.startswith(allowed), (split, err.value.allowed)
+            if field != "epsilon_split.nosuch":
+                assert err.value.allowed == allowed, (split, err.value.allowed)

@@ -15,7 +15,7 @@ from ._spec import FieldSpec
 
 __all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "SECURITY_SCHEMA_RULE", "block_security_specs",
            "security_targets", "security_fields_with", "split_eps_total",
-           "read_label", "one_of", "check_sections"]
+           "read_label", "one_of", "check_sections", "check_split"]
 
 #: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
 DEFAULT_EPS_COR_SHARE = 0.1
@@ -198,3 +198,46 @@ def check_sections(data, sections: dict, required: dict) -> None:
         for key in keys:
             if key not in data[sec]:
                 raise InputError(f"{sec}.{key}", None, "a value (required field)")
+
+
+def check_split(split, terms: tuple, domain, *, unknown_note: str = "", list_missing: bool = False) -> dict:
+    """Check an ``epsilon_split`` table: one share per secrecy term, each in ``domain``, summing to 1.
+
+    Parameters
+    ----------
+    split
+        The table as given.
+    terms : tuple of str
+        The secrecy terms, in order; every one needs a share and no other name is allowed.
+    domain : Domain
+        The domain of one share (the open interval (0, 1)).
+    unknown_note : str
+        Text appended to the message for a name not in ``terms``.
+    list_missing : bool
+        Whether the message for a missing term lists the terms.
+
+    Returns
+    -------
+    dict
+        Term -> share (float), in the order of ``terms``.
+
+    Raises
+    ------
+    InputError
+        Naming ``epsilon_split`` (not a table, shares not summing to 1) or ``epsilon_split.<term>`` (an unknown,
+        missing or out-of-range share).
+    """
+    if not isinstance(split, dict):
+        raise InputError("epsilon_split", split, "a table of shares for " + ", ".join(terms))
+    unknown = sorted(set(split) - set(terms))
+    if unknown:
+        raise InputError(f"epsilon_split.{unknown[0]}", split[unknown[0]], "one of " + ", ".join(terms) + unknown_note)
+    out = {}
+    for n in terms:
+        if n not in split:
+            raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term"
+                             + (": " + ", ".join(terms) if list_missing else ""))
+        out[n] = float(domain.check_scalar(f"epsilon_split.{n}", split[n]))
+    if abs(math.fsum(out.values()) - 1.0) > 1e-9:
+        raise InputError("epsilon_split", split, "shares summing to 1")
+    return out

@@ -13,7 +13,7 @@ from ...channel import check_intensity_list
 from ...domains import COUNT, PROBABILITY, Domain
 from ...errors import InputError
 from .._block_rule import parse_closure
-from .._fields import SECURITY_SCHEMA_RULE, block_security_specs, read_label, security_targets
+from .._fields import SECURITY_SCHEMA_RULE, block_security_specs, check_split, read_label, security_targets
 from .._spec import FieldSpec, by_name
 
 __all__ = ["PROTOCOL_NAME", "SECRECY_TERMS", "DecoyBlock", "ACCEPTANCE_STATISTICS", "AcceptanceTest", "BLOCK_SPECS",
@@ -260,7 +260,7 @@ def parse_block(data: dict) -> DecoyBlock:
     eps_sec, eps_cor = security_targets(data)
     split = data.get("epsilon_split")
     if split is not None:
-        split = _check_split(split)
+        split = check_split(split, SECRECY_TERMS, _SHARE)
     label = read_label(data)
     pulses = None
     if data.get("pulses") is not None:
@@ -346,20 +346,3 @@ def _check_kato_expected(data, n: int, pulses) -> dict:
                         raise InputError(f"{name}[{i}]", x, f"a number in [0, pulses = {pulses}]")
             out[b][k] = vals
     return out
-
-
-def _check_split(split) -> dict:
-    if not isinstance(split, dict):
-        raise InputError("epsilon_split", split, "a table of shares for " + ", ".join(SECRECY_TERMS))
-    unknown = sorted(set(split) - set(SECRECY_TERMS))
-    if unknown:
-        raise InputError(f"epsilon_split.{unknown[0]}", split[unknown[0]], "one of " + ", ".join(SECRECY_TERMS))
-    out = {}
-    for n in SECRECY_TERMS:
-        if n not in split:
-            raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term")
-        out[n] = float(_SHARE.check_scalar(f"epsilon_split.{n}", split[n]))
-    if abs(math.fsum(out.values()) - 1.0) > 1e-9:
-        raise InputError("epsilon_split", split, "shares summing to 1")
-    return out
-

@@ -8,14 +8,13 @@ chose Z, and the relay announced a Bell result).  Only rounds where both chose t
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from ...channel import check_intensity_list
 from ...domains import COUNT, Domain
 from ...errors import InputError
 from .._block_rule import parse_closure
-from .._fields import block_security_specs, read_label, security_targets
+from .._fields import block_security_specs, check_split, read_label, security_targets
 from .._spec import FieldSpec, by_name
 from .scenario import PROTOCOL_NAME, SIDES, probabilities
 
@@ -179,21 +178,8 @@ def _basis(data, name: str, ka: int, kb: int):
 
 def _split(split, joint: bool) -> dict:
     names = tuple(t for t in SECRECY_TERMS if joint or t != "joint_estimation")
-    if not isinstance(split, dict):
-        raise InputError("epsilon_split", split, "a table of shares for " + ", ".join(names))
-    unknown = sorted(set(split) - set(names))
-    if unknown:
-        raise InputError(f"epsilon_split.{unknown[0]}", split[unknown[0]], "one of " + ", ".join(names)
-                         + ("" if joint else " (joint_estimation only with joint_constraints = true)"))
-    out = {}
-    for n in names:
-        if n not in split:
-            raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term: "
-                             + ", ".join(names))
-        out[n] = float(_SHARE.check_scalar(f"epsilon_split.{n}", split[n]))
-    if abs(math.fsum(out.values()) - 1.0) > 1e-9:
-        raise InputError("epsilon_split", split, "shares summing to 1")
-    return out
+    return check_split(split, names, _SHARE, list_missing=True,
+                       unknown_note="" if joint else " (joint_estimation only with joint_constraints = true)")
 
 
 def parse_block(data: dict) -> MdiBlock:

@@ -7,13 +7,12 @@ the effective events (exactly one of the relay's detectors clicked) of the windo
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from ...domains import COUNT, PROBABILITY, Domain
 from ...errors import InputError
 from .._block_rule import parse_closure
-from .._fields import SECURITY_SCHEMA_RULE, block_security_specs, read_label, security_targets
+from .._fields import SECURITY_SCHEMA_RULE, block_security_specs, check_split, read_label, security_targets
 from .._spec import FieldSpec, by_name
 from .scenario import (PROTOCOL_NAME, SNSParameters, _INTENSITY, _WIDTH, check_decoy_probabilities,
                        check_decoys)
@@ -116,22 +115,6 @@ class TFBlock:
         return d
 
 
-def _check_split(split) -> dict:
-    if not isinstance(split, dict):
-        raise InputError("epsilon_split", split, "a table of shares for " + ", ".join(SECRECY_TERMS))
-    unknown = sorted(set(split) - set(SECRECY_TERMS))
-    if unknown:
-        raise InputError(f"epsilon_split.{unknown[0]}", split[unknown[0]], "one of " + ", ".join(SECRECY_TERMS))
-    out = {}
-    for n in SECRECY_TERMS:
-        if n not in split:
-            raise InputError(f"epsilon_split.{n}", None, "a share in (0, 1) for every secrecy term")
-        out[n] = float(_SHARE.check_scalar(f"epsilon_split.{n}", split[n]))
-    if abs(math.fsum(out.values()) - 1.0) > 1e-9:
-        raise InputError("epsilon_split", split, "shares summing to 1")
-    return out
-
-
 def parse_block(data: dict) -> TFBlock:
     """Validate a block mapping (JSON) and return a :class:`TFBlock`.
 
@@ -173,7 +156,7 @@ def parse_block(data: dict) -> TFBlock:
         raise InputError("effective_events", total, "at most 2**50 (exact tails)")
     leak = int(Domain(0, counts["key_detections"], integer=True).check_scalar("ec_leak_bits", data["ec_leak_bits"]))
     eps_sec, eps_cor = security_targets(data)
-    split = _check_split(data["epsilon_split"]) if data.get("epsilon_split") is not None else None
+    split = check_split(data["epsilon_split"], SECRECY_TERMS, _SHARE) if data.get("epsilon_split") is not None else None
     windows = None
     if data.get("windows") is not None:
         windows = int(_SPEC["windows"].check(data["windows"]))
