@@ -13,6 +13,9 @@ the certified key length at the chosen point.
 * :func:`smallest_passing` -- smallest integer at which a monotone predicate
   becomes true: exponential bracketing, then bisection to a relative
   resolution.
+* :func:`smallest_block` -- smallest block size at which a warm-startable
+  design meets a target: half-decade bracketing on log10 of the size, then
+  bisection, then the first whole size at or just above the bracket's end.
 
 References
 ----------
@@ -29,7 +32,7 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-__all__ = ["maximize_box", "golden_max", "smallest_passing"]
+__all__ = ["maximize_box", "golden_max", "smallest_passing", "smallest_block"]
 
 
 def maximize_box(f: Callable, bounds: Sequence[tuple], grid: Sequence[int], *, polish: bool = True,
@@ -142,3 +145,73 @@ def smallest_passing(passes: Callable[[int], bool], start: int, *, limit: int, r
         else:
             lo = mid
     return hi
+
+
+def smallest_block(meets: Callable, x: float, top: float, *, floor: float = 3.0, resolution: float = 1e-3,
+                   warm_upwards: bool = False, whole_tries: int = 5):
+    """Smallest block size ``N`` with ``meets(N)`` true, searched on ``log10 N`` with warm starts.
+
+    ``meets(N, warm=None)`` returns ``(ok, result, warm_next)``; ``warm_next`` warm-starts later calls.  From
+    ``x = log10`` of a first size the bracket moves in half-decade steps: downwards (warm-started from the last
+    size that met the target) while sizes meet it and ``log10 N`` stays above ``floor``, or upwards until a size
+    does, at most to ``top``; then bisection to ``resolution`` in ``log10 N``, warm-started from the passing end.
+    The size returned is the first whole number from ``ceil(10**hi)`` (grown by 0.1 % per try) that meets it.
+
+    Parameters
+    ----------
+    meets : callable
+        ``meets(N, warm=None) -> (ok, result, warm_next)``, monotone in ``N`` (common practice, assumed).
+    x : float
+        ``log10`` of the first size tried (at most ``top``).
+    top : float
+        ``log10`` of the largest size tried.
+    floor : float
+        The downward bracketing stops once ``log10 N`` is at or below it.
+    resolution : float
+        Width in ``log10 N`` at which bisection stops.
+    warm_upwards : bool
+        Whether the upward bracketing warm-starts each size from the previous one.
+    whole_tries : int
+        Whole sizes tried from ``ceil(10**hi)``.
+
+    Returns
+    -------
+    tuple or None
+        None when no size up to ``10**top`` meets the target; else ``(lo, hi, N, result)``: the final bracket in
+        ``log10 N`` (``lo == hi`` when the search stopped at its lower end with a pass), the whole size and its
+        result, with ``N`` None (and ``result`` the last one computed) when none of the whole sizes tried met
+        the target.
+    """
+    ok, _, th_hi = meets(10 ** x)
+    if ok:
+        hi = lo = x
+        while lo > floor:
+            lo -= 0.5
+            ok, _, th = meets(10 ** lo, th_hi)
+            if not ok:
+                break
+            hi, th_hi = lo, th
+    else:
+        lo = x
+        while True:
+            if lo >= top:
+                return None
+            hi = min(lo + 0.5, top)
+            ok, _, th_hi = meets(10 ** hi, th_hi) if warm_upwards else meets(10 ** hi)
+            if ok:
+                break
+            lo = hi
+    while hi - lo > resolution:
+        mid = 0.5 * (lo + hi)
+        ok, _, th = meets(10 ** mid, th_hi)
+        if ok:
+            hi, th_hi = mid, th
+        else:
+            lo = mid
+    N = int(math.ceil(10 ** hi))
+    for _ in range(whole_tries):
+        ok, res, th = meets(N, th_hi)
+        if ok:
+            return lo, hi, N, res
+        N = int(math.ceil(N * 1.001))
+    return lo, hi, None, res

@@ -36,6 +36,7 @@ from ...domains import Domain
 from ...errors import ComputationError, InputError
 from ...decoy import closed_forms as CF
 from ...decoy import intervals as IV
+from ...searching import smallest_block
 from .. import _phase_error as PE
 from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
                        Status, design_no_key)
@@ -788,40 +789,12 @@ def blocksize(scenario: DecoyScenario, target: BlockTarget, statistics: str = DE
     # block that met the target (a continuation path in the block size), or upwards until one does
     top = math.log10(max_pulses)
     x = min(math.log10(objective_problem(scenario, statistics).reference_pulses()), top)
-    ok, _, th_hi = meets(10 ** x)
-    if ok:
-        hi = lo = x
-        while lo > 3.0:
-            lo -= 0.5
-            ok, res, th = meets(10 ** lo, th_hi)
-            if not ok:
-                break
-            hi, th_hi = lo, th
-    else:
-        lo = x
-        while True:
-            if lo >= top:
-                raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
-            hi = min(lo + 0.5, top)
-            ok, _, th_hi = meets(10 ** hi)
-            if ok:
-                break
-            lo = hi
-    while hi - lo > 1e-3:
-        mid = 0.5 * (lo + hi)
-        ok, res, th = meets(10 ** mid, th_hi)
-        if ok:
-            hi, th_hi = mid, th
-        else:
-            lo = mid
+    found = smallest_block(meets, x, top)
+    if found is None:
+        raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulses")
     # the size reported is a whole number of pulses, and the design shown (and its echo) is the one at it
-    N = int(math.ceil(10 ** hi))
-    for _ in range(5):
-        ok, res, th = meets(N, th_hi)
-        if ok:
-            break
-        N = int(math.ceil(N * 1.001))
-    else:
+    lo, hi, N, res = found
+    if N is None:
         raise ComputationError(f"target {target} met at {10 ** hi:.6g} pulses but not at the whole numbers of "
                                "pulses just above it")
     # sizes between the last failing block (10**lo pulses) and the answer were not tried; lo == hi when the

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...errors import ComputationError, InputError
+from ...searching import smallest_block
 from .._phase_error import binary_entropy_float, sampling_kl_rate_float
 from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
                        Status, design_no_key)
@@ -464,39 +465,11 @@ def blocksize(scenario: MdiScenario, target: BlockTarget, statistics: str = A.DE
 
     top = math.log10(max_pulses)
     x = min(math.log10(scenario.pulses), top)
-    ok, _, th_hi = meets(10 ** x)
-    if ok:
-        hi = lo = x
-        while lo > 3.0:
-            lo -= 0.5
-            ok, _, th = meets(10 ** lo, th_hi)
-            if not ok:
-                break
-            hi, th_hi = lo, th
-    else:
-        lo = x
-        while True:
-            if lo >= top:
-                raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulse pairs")
-            hi = min(lo + 0.5, top)
-            ok, _, th_hi = meets(10 ** hi, th_hi)
-            if ok:
-                break
-            lo = hi
-    while hi - lo > 1e-3:
-        mid = 0.5 * (lo + hi)
-        ok, _, th = meets(10 ** mid, th_hi)
-        if ok:
-            hi, th_hi = mid, th
-        else:
-            lo = mid
-    N = int(math.ceil(10 ** hi))
-    for _ in range(5):
-        ok, res, th = meets(N, th_hi)
-        if ok:
-            break
-        N = int(math.ceil(N * 1.001))
-    else:
+    found = smallest_block(meets, x, top, warm_upwards=True)
+    if found is None:
+        raise InputError("target", str(target), f"a target reachable with at most {max_pulses:g} pulse pairs")
+    lo, hi, N, res = found
+    if N is None:
         raise ComputationError(f"target {target} met at {10 ** hi:.6g} pulse pairs but not just above it")
     shrink = 1.0 - 10 ** (lo - hi) if lo < hi else 1.0
     return BlockSizeResult(target=target, size=N, size_kind="pulses", design=res,
