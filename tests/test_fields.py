@@ -336,3 +336,21 @@ def test_epsilon_split_checks_name_the_share(name, block):
             assert err.value.allowed.startswith(allowed), (split, err.value.allowed)
             if field != "epsilon_split.nosuch":
                 assert err.value.allowed == allowed, (split, err.value.allowed)
+
+
+@pytest.mark.parametrize("name", ["bb84", "described"])
+def test_schema_scenario_readers_name_the_section_or_field(name):
+    # BB84 and the described protocol read their sections with one shared reader; the wording of each refusal
+    # is pinned here (common practice, no source).
+    parse = importlib.import_module(f"finitekey.protocols.{name}").parse_scenario
+    cases = [
+        ([1], "scenario", "a table of sections: "),
+        ({"nosuch": {}}, "nosuch", "one of the sections: "),
+        ({"protocol": 3}, "protocol", "a TOML table [protocol]"),
+        ({"protocol": {"nosuch": 1}}, "protocol.nosuch", "one of: "),
+    ]
+    for data, field, allowed in cases:
+        with pytest.raises(InputError) as err:
+            parse(data)
+        assert err.value.field == field, (data, err.value)
+        assert err.value.allowed.startswith(allowed), (data, err.value.allowed)

@@ -15,7 +15,7 @@ from ._spec import FieldSpec
 
 __all__ = ["DEFAULT_EPS_COR_SHARE", "SECURITY_FIELDS", "SECURITY_SCHEMA_RULE", "block_security_specs",
            "security_targets", "security_fields_with", "split_eps_total",
-           "read_label", "one_of", "check_sections", "check_split"]
+           "read_label", "one_of", "check_sections", "check_split", "read_schema_sections"]
 
 #: Share of ``eps_total`` given to correctness when only ``eps_total`` is given.
 DEFAULT_EPS_COR_SHARE = 0.1
@@ -241,3 +241,49 @@ def check_split(split, terms: tuple, domain, *, unknown_note: str = "", list_mis
     if abs(math.fsum(out.values()) - 1.0) > 1e-9:
         raise InputError("epsilon_split", split, "shares summing to 1")
     return out
+
+
+def read_schema_sections(data, schema: dict, raw_kinds: tuple = ()) -> dict:
+    """Read a scenario mapping section by section against ``schema`` (section -> field name -> FieldSpec).
+
+    Parameters
+    ----------
+    data
+        The scenario as given (from TOML).
+    schema : dict
+        Section name -> {field name -> :class:`FieldSpec`}; a missing section reads as an empty one.
+    raw_kinds : tuple of str
+        Field kinds taken as given (checked later by the caller), e.g. ``("list", "table")``.
+
+    Returns
+    -------
+    dict
+        Section -> {field -> checked value}, with the declared defaults for fields not given.
+
+    Raises
+    ------
+    InputError
+        Naming ``scenario`` when ``data`` is not a table, the section for an unknown or non-table section, and
+        ``section.field`` for an unknown field or a value outside its declared domain.
+    """
+    if not isinstance(data, dict):
+        raise InputError("scenario", data, "a table of sections: " + ", ".join(schema))
+    unknown = [s for s in data if s not in schema]
+    if unknown:
+        raise InputError(str(unknown[0]), data[unknown[0]], "one of the sections: " + ", ".join(schema))
+    norm: dict = {}
+    for section, fields in schema.items():
+        given = data.get(section, {})
+        if not isinstance(given, dict):
+            raise InputError(section, given, "a TOML table [" + section + "]")
+        bad = [f for f in given if f not in fields]
+        if bad:
+            raise InputError(f"{section}.{bad[0]}", given[bad[0]], "one of: " + ", ".join(fields))
+        sec = {}
+        for name, spec in fields.items():
+            if name in given:
+                sec[name] = spec.check(given[name]) if spec.kind not in raw_kinds else given[name]
+            elif spec.default is not None:
+                sec[name] = spec.default
+        norm[section] = sec
+    return norm

@@ -13,7 +13,8 @@ from ...entropy import binary_entropy
 from ...errors import InputError
 from ...reconciliation import (EFFICIENCY_DOMAIN, QBER_DOMAIN, FixedEfficiency, LeakageModel,
                                SecondOrderLeakage)
-from .._fields import SECURITY_SCHEMA_RULE, block_security_specs, security_fields_with, security_targets
+from .._fields import (SECURITY_SCHEMA_RULE, block_security_specs, read_schema_sections, security_fields_with,
+                      security_targets)
 from .._spec import FieldSpec, by_name, sections_of
 from .block import OVERLAP_DOMAIN_BB84, PROTOCOL_NAME, Statistics
 
@@ -106,26 +107,7 @@ def parse_scenario(data) -> BB84Scenario:
     (model, efficiency, frame_error_rate), ``[analysis]`` (statistics, overlap), ``[design]`` (p_x to fix the
     bias, optimise_split, smoothing_share).
     """
-    if not isinstance(data, dict):
-        raise InputError("scenario", data, "a table of sections: " + ", ".join(SCENARIO_SCHEMA))
-    unknown = [s for s in data if s not in SCENARIO_SCHEMA]
-    if unknown:
-        raise InputError(str(unknown[0]), data[unknown[0]], "one of the sections: " + ", ".join(SCENARIO_SCHEMA))
-    norm: dict = {}
-    for section, fields in SCENARIO_SCHEMA.items():
-        given = data.get(section, {})
-        if not isinstance(given, dict):
-            raise InputError(section, given, "a TOML table [" + section + "]")
-        bad = [f for f in given if f not in fields]
-        if bad:
-            raise InputError(f"{section}.{bad[0]}", given[bad[0]], "one of: " + ", ".join(fields))
-        sec = {}
-        for name, spec in fields.items():
-            if name in given:
-                sec[name] = spec.check(given[name])
-            elif spec.default is not None:
-                sec[name] = spec.default
-        norm[section] = sec
+    norm = read_schema_sections(data, SCENARIO_SCHEMA)
     if "qber" not in norm["channel"]:
         raise InputError("channel.qber", None, f"the expected QBER, {QBER_DOMAIN.describe()} (missing field)")
     b = norm["budget"]

@@ -16,7 +16,7 @@ import numpy as np
 from ...domains import POSITIVE_COUNT, RATE_HZ, Domain
 from ...errors import InputError
 from ...reconciliation import EFFICIENCY_DOMAIN
-from .._fields import block_security_specs, security_fields_with, security_targets
+from .._fields import block_security_specs, read_schema_sections, security_fields_with, security_targets
 from .._spec import FieldSpec, by_name, sections_of
 from .block import ATTACKS, PROTOCOL_NAME, parse_counts
 from .description import DEFAULT_TOLERANCE, TOLERANCE_DOMAIN, Description, parse_description, picture_index
@@ -167,26 +167,7 @@ def parse_scenario(data) -> DescribedScenario:
     ------
     InputError
     """
-    if not isinstance(data, dict):
-        raise InputError("scenario", data, "a table of sections: " + ", ".join(SCENARIO_SCHEMA))
-    unknown = [s for s in data if s not in SCENARIO_SCHEMA]
-    if unknown:
-        raise InputError(str(unknown[0]), data[unknown[0]], "one of the sections: " + ", ".join(SCENARIO_SCHEMA))
-    norm: dict = {}
-    for section, fields in SCENARIO_SCHEMA.items():
-        given = data.get(section, {})
-        if not isinstance(given, dict):
-            raise InputError(section, given, "a TOML table [" + section + "]")
-        bad = [f for f in given if f not in fields]
-        if bad:
-            raise InputError(f"{section}.{bad[0]}", given[bad[0]], "one of: " + ", ".join(fields))
-        sec = {}
-        for name, spec in fields.items():
-            if name in given:
-                sec[name] = spec.check(given[name]) if spec.kind not in ("list", "table") else given[name]
-            elif spec.default is not None:
-                sec[name] = spec.default
-        norm[section] = sec
+    norm = read_schema_sections(data, SCENARIO_SCHEMA, raw_kinds=("list", "table"))
     desc = parse_description({"description": {k: v for k, v in norm["description"].items()},
                               "alice": norm["alice"], "bob": norm["bob"], "sifting": norm["sifting"]})
     st = norm["statistics"]
