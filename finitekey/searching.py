@@ -215,3 +215,49 @@ def smallest_block(meets: Callable, x: float, top: float, *, floor: float = 3.0,
             return lo, hi, N, res
         N = int(math.ceil(N * 1.001))
     return lo, hi, None, res
+
+
+def farthest_passing(passes: Callable, warm, best, limit: float, tolerance: float, *, first_step: float = 50.0):
+    """Largest ``x`` in ``[0, limit]`` with ``passes(x)`` true, given that ``x = 0`` passes (a reach search).
+
+    The bracket grows from 0 in doubling steps (``first_step``, then twice as far each time), each step
+    warm-started from the last passing point, until a point fails or ``limit`` passes; then bisection to
+    ``tolerance``, warm-started from the passing end.
+
+    Parameters
+    ----------
+    passes : callable
+        ``passes(x, warm) -> (ok, warm_next, result)``, true up to the reach and false beyond (monotone in ``x``;
+        common practice, assumed).
+    warm, best
+        The warm start and the result of the passing point ``x = 0``.
+    limit : float
+        Largest ``x`` tried.
+    tolerance : float
+        Width of the final bracket.
+
+    Returns
+    -------
+    tuple
+        ``(reach, result, limit_reached)``: the largest passing ``x`` found and its result, or ``(None, result,
+        True)`` with the result at ``limit`` when ``limit`` itself passes.
+    """
+    lo, hi, step = 0.0, None, first_step
+    while hi is None:
+        x = min(lo + step, limit)
+        ok, th, res = passes(x, warm)
+        if ok and x >= limit:
+            return None, res, True
+        if ok:
+            lo, warm, best = x, th, res
+            step *= 2
+        else:
+            hi = x
+    while hi - lo > tolerance:
+        mid = 0.5 * (lo + hi)
+        ok, th, res = passes(mid, warm)
+        if ok:
+            lo, warm, best = mid, th, res
+        else:
+            hi = mid
+    return lo, best, False

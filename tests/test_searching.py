@@ -40,3 +40,20 @@ def test_smallest_block_warm_starts_upwards_only_when_asked():
         upward = calls[1:7]             # 10**3.5 ... 10**6: the upward bracketing
         assert [round(math.log10(n), 6) for n, _ in upward] == [3.5, 4.0, 4.5, 5.0, 5.5, 6.0]
         assert all((w is not None) == warm_upwards for _, w in upward)
+
+
+def test_farthest_passing_brackets_by_doubling_and_bisects_to_the_tolerance():
+    # A step function with its edge at 123.4 (common practice, no source: the bisection invariant keeps the
+    # passing end below the edge and the failing end above it). Warm starts carry the last passing point.
+    from finitekey.searching import farthest_passing
+    calls = []
+
+    def passes(x, warm):
+        calls.append((x, warm))
+        return x <= 123.4, x, ("r", x)
+    reach, res, limit = farthest_passing(passes, 0.0, ("r", 0.0), 1000.0, 0.01)
+    assert not limit and 123.4 - 0.01 <= reach <= 123.4 and res == ("r", reach)
+    assert [x for x, _ in calls[:3]] == [50.0, 150.0, 100.0]   # 0 + 50, 50 + 100 fails, then bisection
+    assert all(w <= x for x, w in calls)                        # warm start never from a failing point
+    reach, res, limit = farthest_passing(lambda x, w: (True, x, x), 0.0, 0.0, 300.0, 0.01)
+    assert reach is None and limit and res == 300.0

@@ -36,7 +36,7 @@ from ...domains import Domain
 from ...errors import ComputationError, InputError
 from ...decoy import closed_forms as CF
 from ...decoy import intervals as IV
-from ...searching import smallest_block
+from ...searching import farthest_passing, smallest_block
 from .. import _phase_error as PE
 from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
                        Status, design_no_key)
@@ -698,28 +698,13 @@ def reach(scenario: DecoyScenario, statistics: str = DEFAULT_STATISTICS, toleran
     if not ok:
         return ReachResult(None, statistics, tolerance_km, max_km,
                            Status.no_key(best.status.reason, "at 0 km: " + best.status.detail))
-    lo, hi = 0.0, None
-    step = 50.0
-    while hi is None:
-        L = min(lo + step, max_km)
-        ok, th, res = positive(L, warm)
-        if ok and L >= max_km:
-            return ReachResult(None, statistics, tolerance_km, max_km,
-                               Status(None, f"key at every distance tried up to the search limit {max_km:g} km; "
-                                            "the reach lies beyond it"), limit_reached=True, at_reach=res)
-        if ok:
-            lo, warm, best = L, th, res
-            step *= 2
-        else:
-            hi = L
-    while hi - lo > tolerance_km:
-        mid = 0.5 * (lo + hi)
-        ok, th, res = positive(mid, warm)
-        if ok:
-            lo, warm, best = mid, th, res
-        else:
-            hi = mid
-    return ReachResult(lo, statistics, tolerance_km, max_km, KEY, at_reach=best)
+    reach, res, limit_reached = farthest_passing(positive, warm, best, max_km, tolerance_km)
+    if limit_reached:
+        return ReachResult(None, statistics, tolerance_km, max_km,
+                           Status(None, f"key at every distance tried up to the search limit {max_km:g} km; "
+                                            "the reach lies beyond it"),
+                           limit_reached=True, at_reach=res)
+    return ReachResult(reach, statistics, tolerance_km, max_km, KEY, at_reach=res)
 
 
 def block_unit(unit, scenario: DecoyScenario) -> str:

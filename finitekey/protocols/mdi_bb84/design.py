@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ...errors import ComputationError, InputError
-from ...searching import smallest_block
+from ...searching import farthest_passing, smallest_block
 from .._phase_error import binary_entropy_float, sampling_kl_rate_float
 from .._result import (KEY, BlockSizeResult, BlockTarget, BlockTargetKind, DesignResult, NoKeyReason, ReachResult,
                        Status, design_no_key)
@@ -408,27 +408,12 @@ def reach(scenario: MdiScenario, statistics: str = A.DEFAULT_STATISTICS, toleran
     if not ok:
         return ReachResult(None, statistics, tolerance_km, max_km,
                            Status.no_key(best.status.reason, "at 0 km: " + best.status.detail))
-    lo, hi, step = 0.0, None, 50.0
-    while hi is None:
-        L = min(lo + step, max_km)
-        ok, th, res = positive(L, warm)
-        if ok and L >= max_km:
-            return ReachResult(None, statistics, tolerance_km, max_km,
-                               Status(None, f"key at every distance tried up to the search limit {max_km:g} km"),
-                               limit_reached=True, at_reach=res)
-        if ok:
-            lo, warm, best = L, th, res
-            step *= 2
-        else:
-            hi = L
-    while hi - lo > tolerance_km:
-        mid = 0.5 * (lo + hi)
-        ok, th, res = positive(mid, warm)
-        if ok:
-            lo, warm, best = mid, th, res
-        else:
-            hi = mid
-    return ReachResult(lo, statistics, tolerance_km, max_km, KEY, at_reach=best)
+    reach, res, limit_reached = farthest_passing(positive, warm, best, max_km, tolerance_km)
+    if limit_reached:
+        return ReachResult(None, statistics, tolerance_km, max_km,
+                           Status(None, f"key at every distance tried up to the search limit {max_km:g} km"),
+                           limit_reached=True, at_reach=res)
+    return ReachResult(reach, statistics, tolerance_km, max_km, KEY, at_reach=res)
 
 
 def blocksize(scenario: MdiScenario, target: BlockTarget, statistics: str = A.DEFAULT_STATISTICS,
